@@ -1,0 +1,188 @@
+"""Homogeneous Bethe–Salpeter equation in rainbow-ladder truncation, rest frame.
+
+    λ(P²) Γ(p; P) = −Z₂² C_F ∫_q g(k²) T_μν(k) γ_μ S(q₊) Γ(q; P) S(q₋) γ_ν
+
+Γ is stored by its covariant coefficients F_i on the (z, p) nodes; the wave function
+χ = S(q₊) Γ S(q₋) is a local map G₀(M) on those nodes; the kernel K̂ (``ladder``) maps χ
+back to Γ and does not depend on M.  λ(P²) are the eigenvalues of Z₂² K̂ G₀(M): the
+leading ones by implicitly restarted Arnoldi (ARPACK, warm-started from the previous
+eigenvector), or all of them densely as a cross-check.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import scipy.linalg
+import scipy.sparse.linalg as spla
+
+from . import ladder
+from . import propagators as props
+from . import quadrature as qd
+from .channels import Channel
+from .dirac import rest_frame_vectors
+from .gap import GapSolution
+from .kernel import Kernel
+from ._jax import jax, jnp
+
+
+@dataclass(frozen=True)
+class BSEGrid:
+    """Resolution of a Bethe–Salpeter solve."""
+
+    q2_min: float = 1e-4
+    widths: tuple[float, float, float] = (6.0, 2.4, 5.0)
+    order: int = 8
+    n_z: int = 8
+    angular_half: int = 32
+    fine_order: int = 10
+
+    def radial(self, q2_max: float) -> qd.RadialGrid:
+        return qd.radial_grid(self.q2_min, q2_max, self.widths, self.order)
+
+    def coarser(self) -> "BSEGrid":
+        """A grid with wider radial panels and fewer z nodes (the second grid of an error bar)."""
+        return BSEGrid(self.q2_min, tuple(1.25 * w for w in self.widths), self.order,
+                       max(4, self.n_z - 2), self.angular_half, self.fine_order)
+
+
+@jax.jit
+def _bse_matvec(v, g0, zf, arrays):
+    chi = jnp.einsum("qkji,ikq->jkq", g0, v)
+    return zf * ladder._apply(chi, *arrays)
+
+
+CONTINUATIONS = ("shifted", "direct")
+
+
+class BoundState:
+    """A channel on a grid with two quark propagators: G₀(M), the operator, eigenvalues."""
+
+    def __init__(self, kernel: Kernel, channel: Channel, grid: BSEGrid, quark1: GapSolution,
+                 quark2: GapSolution | None = None, eta: float = 0.5, kernel_operator=None,
+                 continuation: str = "shifted", subtract_boundary: bool = True):
+        self.kernel = kernel
+        self.channel = channel
+        self.grid = grid
+        self.quark1 = quark1
+        self.quark2 = quark2 if quark2 is not None else quark1
+        self.eta = float(eta)
+        self.radial = grid.radial(kernel.q2_max)
+        lgrid = ladder.LadderGrid(self.radial, grid.n_z, grid.angular_half, grid.fine_order)
+        self.ladder = kernel_operator if kernel_operator is not None else ladder.build(kernel, channel, lgrid)
+        self.z = self.ladder.z
+        self.wz = self.ladder.wz
+        self.q2 = self.radial.q2
+        zf1 = float(kernel.z2_factor(self.quark1.z2)) ** 0.5
+        zf2 = float(kernel.z2_factor(self.quark2.z2)) ** 0.5
+        self.z2_factor = zf1 * zf2
+        qh, ph = rest_frame_vectors(self.z)
+        self._basis = channel.basis(qh, ph)  # (n_z, n_b, n_idx, 4, 4)
+        self._ginv = np.linalg.inv(channel.gram(qh, ph))  # (n_z, n_b, n_b)
+        self._cache: dict[float, tuple] = {}
+        if continuation not in CONTINUATIONS:
+            raise ValueError(f"unknown continuation {continuation!r}")
+        self.continuation = continuation
+        self._shifted = None
+        if continuation == "shifted":
+            if self.quark2 is not self.quark1 or self.eta != 0.5:
+                raise NotImplementedError("shifted continuation: equal flavours and η = 1/2 for now")
+            from .channels import QUARK
+            from .routed import ShiftedSolver
+
+            qop = ladder.build(kernel, QUARK, lgrid, sign=+1.0)
+            self._shifted = ShiftedSolver(self.quark1, lgrid, subtract_boundary, operator=qop)
+            self._last = None
+            self._history = []
+
+    @property
+    def shape(self):
+        return (self.channel.n_basis, self.grid.n_z, self.radial.size)
+
+    @property
+    def size(self):
+        return int(np.prod(self.shape))
+
+    # -------------------------------------------------------------------------------
+    def propagators(self, mass: float):
+        """S(q₊), S(q₋) matrices on the grid (cached per mass)."""
+        key = float(mass)
+        hit = self._cache.get(key)
+        if hit is not None:
+            return hit
+        if self._shifted is not None:
+            near = sorted(self._history, key=lambda g: abs(g.mass_gev - mass))[:2][::-1]
+            sol = self._shifted.solve(mass, self.eta, guess=near)
+            self._last = sol
+            self._history = (self._history + [sol])[-6:]
+            cp = sol.coefficients_of_S()
+            sp = props.matrices_from_coefficients(cp, self.z)
+            sm = props.matrices_from_coefficients(props.reflected(cp), self.z)
+            if len(self._cache) > 16:
+                self._cache.clear()
+            self._cache[key] = (sp, sm, sol, None)
+            return self._cache[key]
+        plus2, minus2 = props.shifted_momenta(self.q2, self.z, mass, self.eta)
+        if self.quark2 is self.quark1:
+            both = props.dress(self.quark1, np.stack([plus2, minus2]))
+            dp = props.DressedPoints(both.p2[0], both.A[0], both.B[0])
+            dm = props.DressedPoints(both.p2[1], both.A[1], both.B[1])
+        else:
+            dp = props.dress(self.quark1, plus2)
+            dm = props.dress(self.quark2, minus2)
+        sp, sm = props.propagator_matrices(self.q2, self.z, mass, self.eta, dp, dm)
+        if len(self._cache) > 16:
+            self._cache.clear()
+        self._cache[key] = (sp, sm, dp, dm)
+        return self._cache[key]
+
+    def g0(self, mass: float) -> np.ndarray:
+        """G₀[q, k, j, i]: coefficient j of S(q₊) τ_i S(q₋) at node (q, z_k)."""
+        sp, sm, _, _ = self.propagators(mass)
+        t = self._basis
+        chi = np.einsum("qkab,kimbc,qkcd->qkimad", sp, t, sm, optimize=True)
+        rhs = np.einsum("kjmab,qkimba->qkji", t, chi, optimize=True)
+        return np.einsum("kjJ,qkJi->qkji", self._ginv, rhs, optimize=True)
+
+    def wave_function(self, amp: np.ndarray, mass: float) -> np.ndarray:
+        """χ coefficients (n_b, n_z, n_q) for Γ coefficients ``amp`` of the same shape."""
+        return np.einsum("qkji,ikq->jkq", self.g0(mass), amp.reshape(self.shape))
+
+    def apply_kernel(self, chi: np.ndarray) -> np.ndarray:
+        return self.z2_factor * np.asarray(self.ladder.apply(jnp.asarray(chi.reshape(self.shape))))
+
+    def operator(self, mass: float) -> spla.LinearOperator:
+        g0 = jnp.asarray(self.g0(mass))
+        zf = self.z2_factor
+        shape = self.shape
+        arrays = self.ladder.arrays
+
+        def mv(v):
+            return np.asarray(_bse_matvec(jnp.asarray(v.reshape(shape)), g0, zf, arrays)).reshape(-1)
+
+        return spla.LinearOperator((self.size, self.size), matvec=mv, dtype=complex)
+
+    def dense(self, mass: float) -> np.ndarray:
+        """The full matrix Z₂² K̂ G₀(M) (small grids only)."""
+        g0 = self.g0(mass)
+        n_b, n_z, n_q = self.shape
+        blk = np.zeros((n_b, n_z, n_q, n_b, n_z, n_q), dtype=complex)
+        kk, qq = np.meshgrid(np.arange(n_z), np.arange(n_q), indexing="ij")
+        for j in range(n_b):
+            for i in range(n_b):
+                blk[j, kk, qq, i, kk, qq] = g0[qq, kk, j, i]
+        return self.z2_factor * (self.ladder.dense() @ blk.reshape(self.size, self.size))
+
+    def eigen(self, mass: float, k: int = 3, v0=None, tol: float = 1e-12):
+        """Leading k eigenvalues (by real part) and eigenvectors of the BSE at P² = −M²."""
+        op = self.operator(mass)
+        ncv = max(2 * k + 6, 8)
+        vals, vecs = spla.eigs(op, k=k, which="LR", v0=v0, tol=tol, ncv=ncv, maxiter=5000)
+        order = np.argsort(-vals.real)
+        return vals[order], vecs[:, order]
+
+    def eigen_dense(self, mass: float):
+        vals, vecs = scipy.linalg.eig(self.dense(mass))
+        order = np.argsort(-vals.real)
+        return vals[order], vecs[:, order]

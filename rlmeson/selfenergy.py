@@ -1,0 +1,111 @@
+"""Rows of the rainbow quark self-energy: Σ_A(p²), Σ_B(p²) as linear maps of the
+propagator on the radial nodes, for real or complex external p².
+
+With S(q) = −iγ·q σ_V(q²) + σ_S(q²) and u_{V,S} = q² σ_{V,S} on the radial nodes,
+
+    Σ_B(p²) = 4 ∫_q g(k²) σ_S(q²)
+    Σ_A(p²) = (4/3) (1/p²) ∫_q g(k²) σ_V(q²) [p·q + 2 (k·p)(k·q)/k²],   k = p − q,
+
+(the Dirac projections of C_F ∫ g T_μν(k) γ_μ S(q) γ_ν; the tests check them against
+explicit 4×4 traces), so that A = Z₂ + Z₂² Σ_A and B = Z₄ m + Z₂² Σ_B.  The rows are
+``R_A @ u_V`` and ``R_B @ u_S``.
+
+For complex p² the same integrals are evaluated with p = √p² (principal root) and a
+real loop momentum: this is the covariant continuation "at complex external momentum";
+the angular rule is symmetric, so the result depends on p² only.
+"""
+
+from __future__ import annotations
+
+import math
+from functools import partial
+
+import numpy as np
+
+from . import quadrature as qd
+from ._jax import jax, jnp
+from .kernel import Kernel
+
+_PI = math.pi
+# ∫ d⁴q/(2π)⁴ = ∫ dt (q⁴/2) · 4π ∫_0^π sin²θ dθ / (2π)⁴ ; with σ = u/q² the radial factor is q²/2
+_MEASURE = 4.0 * _PI / (2.0 * _PI) ** 4 / 2.0
+
+
+def _angle_scale(p_abs, q, k_res):
+    """θ*: the smallest angular feature of g((p − q)²) for |p|, q (sets the θ grading)."""
+    return 0.25 * np.maximum(np.abs(p_abs - q), 0.25 * k_res) / np.sqrt(np.maximum(p_abs * q, 1e-300))
+
+
+class RuleSet:
+    """Fine radial rules and angular rules for a set of targets (numpy, built once)."""
+
+    def __init__(self, grid: qd.RadialGrid, p2: np.ndarray, k_res: float, n_half: int,
+                 levels: int, order: int):
+        p2 = np.asarray(p2)
+        pabs = np.sqrt(np.abs(p2))
+        h_min = np.clip(0.2 * k_res / np.maximum(pabs, 1e-12), 1e-10, 2.0)
+        self.fine = qd.fine_rule(grid, np.log(np.maximum(np.abs(p2), 1e-300)), h_min,
+                                 levels=levels, order=order)
+        q = np.sqrt(self.fine.q2)
+        self.level = qd.angular_level(_angle_scale(pabs[:, None], q, k_res))
+
+
+@partial(jax.jit, static_argnames=("form", "n_nodes"))
+def _rows_block(form, jparams, p2, t_f, w_f, idx, lag, level, tables, n_nodes: int):
+    p = jnp.sqrt(p2)
+    q2 = jnp.exp(t_f)
+    q = jnp.sqrt(q2)
+    pq = p[:, None] * q  # (T,F)
+    dpq = p[:, None] - q
+    half = tables["half"][level]  # (T,F,n)
+    s2 = tables["s2w"][level]
+    x = tables["x"][level]
+    k2 = dpq[..., None] ** 2 + 4.0 * pq[..., None] * half
+    gk = form.g(k2, jparams)
+    kp = p[:, None, None] * (dpq[..., None] + 2.0 * q[..., None] * half)
+    kq = q[..., None] * (dpq[..., None] - 2.0 * p[:, None, None] * half)
+    ib = jnp.sum(s2 * gk, axis=-1)
+    ia = jnp.sum(s2 * gk * (pq[..., None] * x + 2.0 * kp * kq / k2), axis=-1) / p2[:, None]
+    fac = _MEASURE * q2 * w_f  # (T,F)
+    vb = (4.0 * fac * ib)[..., None] * lag
+    va = ((4.0 / 3.0) * fac * ia)[..., None] * lag
+    T = p2.shape[0]
+    tt = jnp.broadcast_to(jnp.arange(T)[:, None, None], idx.shape)
+    rb = jnp.zeros((T, n_nodes), dtype=vb.dtype).at[tt, idx].add(vb)
+    ra = jnp.zeros((T, n_nodes), dtype=va.dtype).at[tt, idx].add(va)
+    return ra, rb
+
+
+def rows(kernel: Kernel, grid: qd.RadialGrid, p2, *, n_half: int = 40, levels: int | None = None,
+         order: int = 6, block: int = 16, jparams=None):
+    """(R_A, R_B) of shape (T, N) for targets p2 (real ≥ 0 or complex)."""
+    p2 = np.atleast_1d(np.asarray(p2))
+    cplx = np.iscomplexobj(p2)
+    if levels is None:
+        levels = fine_levels(kernel, grid)
+    if jparams is None:
+        jparams = kernel.jparams()
+    T = p2.size
+    nb = -(-T // block)
+    pad = nb * block - T
+    p2p = np.concatenate([p2, np.full(pad, p2[-1] if T else 1.0, dtype=p2.dtype)])
+    out_a, out_b = [], []
+    tables = {k: jnp.asarray(v) for k, v in qd.angular_tables(n_half).items()}
+    for b in range(nb):
+        sl = p2p[b * block:(b + 1) * block]
+        rs = RuleSet(grid, sl, kernel.resolution_gev, n_half, levels, order)
+        dt = jnp.complex128 if cplx else jnp.float64
+        ra, rb = _rows_block(kernel.form, jparams, jnp.asarray(sl, dtype=dt), rs.fine.t, rs.fine.w,
+                             rs.fine.idx, rs.fine.lag, rs.level, tables, grid.size)
+        out_a.append(ra)
+        out_b.append(rb)
+    ra = jnp.concatenate(out_a)[:T]
+    rb = jnp.concatenate(out_b)[:T]
+    return ra, rb
+
+
+def fine_levels(kernel: Kernel, grid: qd.RadialGrid) -> int:
+    """Grading depth that reaches the finest sub-panel needed at the top of the grid."""
+    p_top = math.sqrt(math.exp(grid.t_max))
+    h = max(0.2 * kernel.resolution_gev / p_top, 1e-10)
+    return int(min(40, max(4, math.ceil(math.log2(2.0 / h)))))
