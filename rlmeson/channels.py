@@ -106,7 +106,7 @@ PSEUDOSCALAR = register(Channel(
     decay_factor=lambda m: 1.0 / (1j * m),
     condensate_projector=lambda ph: GAMMA5[None],
     condensate_factor=-1j,
-    basis_labels=("γ5", "γ5 γ·P̂", "γ5 γ·q_T", "γ5 γ·q_T γ·P̂"),
+    basis_labels=("γ5", "γ5 γ·q_T", "γ5 γ·P̂", "γ5 γ·q_T γ·P̂"),
 ))
 
 VECTOR = register(Channel(
@@ -115,7 +115,7 @@ VECTOR = register(Channel(
     decay_projector=lambda ph: GAMMA.copy(),
     decay_factor=lambda m: 1.0 / m,
     basis_labels=("γ_μ^T", "γ_μ^T γ·q_T", "γ_μ^T γ·P̂", "γ_μ^T γ·q_T γ·P̂",
-                  "q_μ^T", "q_μ^T γ·q_T", "q_μ^T γ·P̂", "q_μ^T γ·q_T γ·P̂"),
+                  "q_μ^T", "q_μ^T γ·q_T", "q_μ^T γ·P̂", "q_μ^T γ·q_T γ·P̂"),  # order of _vector
 ))
 
 #: The Dirac structure of a quark propagator at complex momentum q + ηP (not a meson).

@@ -40,7 +40,7 @@ class GapGrid:
     """Numerical resolution of a gap-equation solve."""
 
     q2_min: float = 1e-6
-    widths: tuple[float, float, float] = (4.0, 1.8, 3.6)
+    widths: tuple[float, ...] = (4.0, 1.8, 3.6, 3.6)
     order: int = 8
     angular_half: int = 32
     fine_order: int = 10
@@ -159,10 +159,18 @@ def _residual(x, ra, rb, q2, mass, z2sq: bool, chiral: bool, mu):
 _jac = jax.jit(jax.jacfwd(_residual), static_argnames=("z2sq", "chiral"))
 
 
+def _relative(r, x):
+    """max over nodes of |F_A|/|A| and |F_B|/|B| (and |F_Z|)."""
+    n = (x.size - 1) // 2
+    ra = np.abs(r[:n]) / np.abs(x[:n])
+    rb = np.abs(r[n:2 * n]) / np.maximum(np.abs(x[n:2 * n]), 1e-300)
+    return float(max(ra.max(), rb.max(), abs(r[-1])))
+
+
 def _newton(x, args, kw, tol, max_iter):
     hist = []
     r = np.asarray(_residual(x, *args, **kw))
-    hist.append(float(np.max(np.abs(r))))
+    hist.append(_relative(r, x))
     it = 0
     while hist[-1] > tol and it < max_iter:
         J = np.asarray(_jac(x, *args, **kw))
@@ -174,17 +182,17 @@ def _newton(x, args, kw, tol, max_iter):
             ok = np.all(np.isfinite(xn))
             if ok:
                 rn = np.asarray(_residual(xn, *args, **kw))
-                if np.all(np.isfinite(rn)) and np.max(np.abs(rn)) < (1 - 0.25 * lam) * hist[-1] or lam < 1e-3:
+                if np.all(np.isfinite(rn)) and _relative(rn, xn) < (1 - 0.25 * lam) * hist[-1] or lam < 1e-3:
                     break
             lam *= 0.5
         x, r = xn, rn
-        hist.append(float(np.max(np.abs(r))))
+        hist.append(_relative(r, x))
         it += 1
     return x, it, hist
 
 
 def solve(kernel: Kernel, mass_gev: float, zeta_gev: float, grid: GapGrid = GapGrid(), *,
-          tol: float = 1e-11, max_iter: int = 60, guess: GapSolution | None = None) -> GapSolution:
+          tol: float = 1e-12, max_iter: int = 60, guess: GapSolution | None = None) -> GapSolution:
     """Solve the gap equation; raises RuntimeError when Newton does not converge."""
     t0 = time.perf_counter()
     radial = grid.radial(kernel.q2_max)

@@ -128,23 +128,33 @@ class RadialGrid:
         return np.sum(np.asarray(values)[..., idx] * L, axis=-1)
 
 
-def radial_grid(q2_min: float, q2_max: float, widths: tuple[float, float, float], order: int,
-                breaks: tuple[float, float] = (0.1, 100.0)) -> RadialGrid:
-    """Panels in t = ln q² in three zones split at ``breaks`` (GeV²), each zone with
-    panels no wider than its entry of ``widths`` (in units of t).
+#: Zone boundaries (GeV²) of the radial grids: infrared | mass generation and onset of
+#: running | perturbative tail | far ultraviolet.
+ZONE_BREAKS = (0.1, 100.0, 1e4)
 
-    The middle zone holds the dynamical mass generation and the onset of the
+
+def radial_grid(q2_min: float, q2_max: float, widths, order: int,
+                breaks=ZONE_BREAKS) -> RadialGrid:
+    """Panels in t = ln q² in zones split at ``breaks`` (GeV²), each zone with panels no
+    wider than its entry of ``widths`` (in units of t; one width per zone).
+
+    The second zone holds the dynamical mass generation and the onset of the
     perturbative running (the functions change fastest there); the infrared zone is
-    suppressed by the measure q⁴, and the ultraviolet zone is a slow power law.
+    suppressed by the measure q⁴, and the ultraviolet zones are slow power laws.
     """
+    widths = tuple(widths)
+    if len(widths) != len(breaks) + 1:
+        raise ValueError(f"need {len(breaks) + 1} panel widths, got {len(widths)}")
     a, b = math.log(q2_min), math.log(q2_max)
-    cuts = [a] + [math.log(x) for x in breaks if a < math.log(x) < b] + [b]
-    zone_widths = list(widths)
-    if len(cuts) < 4:  # a zone is empty: keep the widths of the zones that remain
-        keep = [i for i, x in enumerate((a, *map(math.log, breaks))) if x < b][: len(cuts) - 1]
-        zone_widths = [widths[min(i, 2)] for i in keep] or [min(widths)]
+    cuts = [a]
+    zone_w = []
+    for w, hi in zip(widths, [math.log(x) for x in breaks] + [b]):
+        hi = min(hi, b)
+        if hi > cuts[-1]:
+            cuts.append(hi)
+            zone_w.append(w)
     edges = [cuts[0]]
-    for lo, hi, w in zip(cuts[:-1], cuts[1:], zone_widths):
+    for lo, hi, w in zip(cuts[:-1], cuts[1:], zone_w):
         n = max(1, math.ceil((hi - lo) / w - 1e-9))
         edges.extend(np.linspace(lo, hi, n + 1)[1:].tolist())
     return RadialGrid(tuple(edges), order)

@@ -160,8 +160,10 @@ class ShiftedSolver:
             X = jnp.asarray(self._guess(mass, eta))
         res = lambda x: _residual(x, rhs, self.zf, self._t, self._ginv, arrays)  # noqa: E731
         r = res(X)
-        scale = float(np.max(np.abs(free)))
-        hist = [float(jnp.max(jnp.abs(r))) / scale]
+        # residual relative to S⁻¹ node by node (S⁻¹ spans many decades in q)
+        node_scale = jnp.sqrt(jnp.sum(jnp.abs(jnp.asarray(free)) ** 2, axis=0))
+        rel = lambda r: float(jnp.max(jnp.sqrt(jnp.sum(jnp.abs(r) ** 2, axis=0)) / node_scale))  # noqa: E731
+        hist = [rel(r)]
         it = 0
         shape = free.shape
         n = int(np.prod(shape))
@@ -169,12 +171,17 @@ class ShiftedSolver:
             Xc = X
             op = spla.LinearOperator((n, n), dtype=complex, matvec=lambda v: np.array(
                 _jvp(Xc, jnp.asarray(v.reshape(shape)), rhs, self.zf, self._t, self._ginv, arrays)).ravel())
-            # inexact Newton: the linear solve only needs to beat the next residual
-            dx, info = spla.gmres(op, -np.asarray(r).ravel(), rtol=max(1e-10, min(1e-2, hist[-1])),
-                                  atol=0.0, restart=60, maxiter=20)
+            # inexact Newton; right-preconditioned by the node scale so that GMRES works
+            # on relative quantities
+            w = np.asarray(node_scale)[None].repeat(shape[0], 0).ravel()
+            opw = spla.LinearOperator((n, n), dtype=complex,
+                                      matvec=lambda u, op=op, w=w: op.matvec(u * w) / w)
+            du, info = spla.gmres(opw, -np.asarray(r).ravel() / w, rtol=max(1e-12, min(1e-2, 0.1 * hist[-1])),
+                                  atol=0.0, restart=80, maxiter=30)
+            dx = du * w
             X = X + jnp.asarray(dx.reshape(shape))
             r = res(X)
-            hist.append(float(jnp.max(jnp.abs(r))) / scale)
+            hist.append(rel(r))
             it += 1
         if not hist[-1] <= tol * 10:
             raise RuntimeError(f"shifted gap equation did not converge (residual {hist[-1]:.2e})")

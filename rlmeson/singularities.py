@@ -1,0 +1,96 @@
+"""The propagator's nearest complex singularities and the largest accessible bound-state mass.
+
+S(p) is singular where D(s) = s A(s)² + B(s)² vanishes (s = p²).  A bound state of mass
+M with momentum fraction η probes q₊² = q² − η²M² + 2iηM q z, which fills a parabola
+with vertex −η²M²; a point s₀ = a + ib lies inside it iff a ≥ b²/(4η²M²) − η²M².  The
+largest M whose parabola leaves s₀ outside is therefore
+
+    M_max(η) = |Im √s₀| / η      (the point lies on the boundary),
+
+minimised over the singularities found.  The search evaluates D with the direct
+continuation (``GapSolution.dressing`` at complex s): a scan of log|D| over a region
+scaled by M(0)², then two-dimensional Newton refinement of each local minimum.  That
+continuation is not exactly analytic for interactions with g(0) ≠ 0 (see
+``propagators``), so s₀ carries a relative uncertainty of order 1e-3; M_max is a bound
+for the search, not an observable.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from .gap import GapSolution
+
+
+@dataclass(frozen=True)
+class Singularity:
+    s_gev2: complex            # location in p² (upper half plane; its conjugate is one too)
+    residual: float            # |D(s₀)| / (|s₀| A² + |B|²) at the refined point
+
+    def max_mass(self, eta: float = 0.5) -> float:
+        return float(abs(np.sqrt(complex(self.s_gev2)).imag) / eta)
+
+
+def _d(sol: GapSolution, s):
+    a, b = sol.dressing(np.asarray(s, dtype=complex))
+    return s * a * a + b * b, np.abs(s) * np.abs(a) ** 2 + np.abs(b) ** 2
+
+
+def _refine(sol, s0, steps=12, tol=1e-10):
+    s = complex(s0)
+    scale = max(abs(s), 1e-3)
+    for _ in range(steps):
+        h = 1e-6 * scale
+        d, nrm = _d(sol, np.array([s, s + h, s + 1j * h]))
+        f0 = np.array([d[0].real, d[0].imag])
+        jac = np.array([[(d[1] - d[0]).real / h, (d[2] - d[0]).real / h],
+                        [(d[1] - d[0]).imag / h, (d[2] - d[0]).imag / h]])
+        try:
+            dx = np.linalg.solve(jac, -f0)
+        except np.linalg.LinAlgError:
+            break
+        step = complex(dx[0], dx[1])
+        if abs(step) > 0.5 * scale:
+            step *= 0.5 * scale / abs(step)
+        s = complex(s.real + step.real, abs(s.imag + step.imag))
+        if abs(step) < tol * scale:
+            break
+    d, nrm = _d(sol, np.array([s]))
+    return Singularity(s_gev2=s, residual=float(abs(d[0]) / nrm[0]))
+
+
+def find(sol: GapSolution, n_scan: int = 14, keep: int = 3) -> list[Singularity]:
+    """Singularities of S in the upper half of the s plane near the origin, nearest first
+    (in the sense of M_max)."""
+    m0 = abs(sol.mass_function_at_zero())
+    scale = max(m0 * m0, 1e-4)
+    re = np.linspace(-3.0, 0.5, n_scan) * scale
+    im = np.linspace(0.02, 3.0, n_scan) * scale
+    grid = re[:, None] + 1j * im[None, :]
+    d, nrm = _d(sol, grid.ravel())
+    val = np.log(np.abs(d) / nrm).reshape(grid.shape)
+    cands = []
+    for i in range(n_scan):
+        for j in range(n_scan):
+            nb = val[max(0, i - 1):i + 2, max(0, j - 1):j + 2]
+            if val[i, j] <= nb.min():
+                cands.append((val[i, j], grid[i, j]))
+    cands.sort(key=lambda c: c[0])
+    found: list[Singularity] = []
+    for _, s0 in cands[: 2 * keep]:
+        sing = _refine(sol, s0)
+        if sing.residual < 1e-8 and all(abs(sing.s_gev2 - f.s_gev2) > 1e-6 * scale for f in found):
+            found.append(sing)
+    found.sort(key=lambda f: f.max_mass())
+    return found[:keep]
+
+
+def max_bound_state_mass(sol: GapSolution, eta: float = 0.5) -> tuple[float, Singularity | None]:
+    """(M_max, the singularity that sets it); M_max = inf when none is found."""
+    sings = find(sol)
+    if not sings:
+        return float("inf"), None
+    best = min(sings, key=lambda s: s.max_mass(eta))
+    return best.max_mass(eta), best
