@@ -168,9 +168,11 @@ def _relative(r, x):
 
 
 def _newton(x, args, kw, tol, max_iter):
-    hist = []
+    """Damped Newton: backtracking on the absolute residual (a smooth merit), stopping on
+    the node-by-node relative residual (what is reported)."""
     r = np.asarray(_residual(x, *args, **kw))
-    hist.append(_relative(r, x))
+    merit = float(np.max(np.abs(r)))
+    hist = [_relative(r, x)]
     it = 0
     while hist[-1] > tol and it < max_iter:
         J = np.asarray(_jac(x, *args, **kw))
@@ -178,14 +180,17 @@ def _newton(x, args, kw, tol, max_iter):
         lam = 1.0
         while True:
             xn = x + lam * dx
-            n = xn.size // 2
-            ok = np.all(np.isfinite(xn))
-            if ok:
-                rn = np.asarray(_residual(xn, *args, **kw))
-                if np.all(np.isfinite(rn)) and _relative(rn, xn) < (1 - 0.25 * lam) * hist[-1] or lam < 1e-3:
+            rn = np.asarray(_residual(xn, *args, **kw)) if np.all(np.isfinite(xn)) else None
+            if rn is not None and np.all(np.isfinite(rn)):
+                mn = float(np.max(np.abs(rn)))
+                if mn < (1 - 0.25 * lam) * merit or lam < 1e-3 or mn < 1e-14:
                     break
             lam *= 0.5
-        x, r = xn, rn
+            if lam < 1e-4:
+                break
+        if rn is None:
+            break
+        x, r, merit = xn, rn, mn
         hist.append(_relative(r, x))
         it += 1
     return x, it, hist

@@ -54,7 +54,7 @@ class Kernel:
     regularisation: str = HARD_CUTOFF
     cutoff_gev2: float = 1e5          # Λ² (hard cutoff)
     regulator_gev2: float = 1e6       # Λ_R² (translation-invariant)
-    grid_end_gev2: float = 1e13       # end of the loop integrals (translation-invariant)
+    grid_end_gev2: float = 1e11       # end of the loop integrals (translation-invariant)
     z2_squared: bool = True
 
     def __post_init__(self):

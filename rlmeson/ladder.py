@@ -172,9 +172,10 @@ def _moments_block(form, jparams, p, t_f, w_f, idx, lag, level, half_t, x_t, s2w
         us.append(2.0 * x * us[-1] - us[-2])
     u = jnp.stack(us[:n_u], axis=-1)  # (T,F,n,L)
     mom = jnp.einsum("tfnc,tfnl->tflc", f, u)
-    # q⁴χ(q) is interpolated as (μ² + q²)² ψ(q), ψ = χ q⁴/(μ² + q²)² being smooth at both
-    # ends (μ² = 1 GeV²); the node factor q_j⁴/(μ² + q_j²)² is applied by the caller.
-    meas = ((1.0 + q2) ** 2 / 2.0) / (2.0 * math.pi) ** 4 * w_f  # (T,F)
+    # χ(q) is interpolated as ψ(q) = (μ² + q²)² χ(q) (μ² = 1 GeV²): constant in the
+    # infrared and a slow power in the ultraviolet, where χ itself falls like q⁻⁶; the
+    # node factor (μ² + q_j²)² is applied by the caller.
+    meas = (q2 * q2 / (1.0 + q2) ** 2 / 2.0) / (2.0 * math.pi) ** 4 * w_f  # (T,F)
     contrib = (mom * meas[..., None, None])[:, :, None] * lag[..., None, None]
     T = p.shape[0]
     tt = jnp.broadcast_to(jnp.arange(T)[:, None, None], idx.shape)
@@ -219,7 +220,7 @@ def moments(kernel: Kernel, grid: LadderGrid, n_l: int, n_s: int, block: int = 8
                                    lev, *tables, rad.size, n_u))
     mu = np.asarray(jnp.concatenate(outs)[:T])  # (P, Q, n_u, 4)
     qn2 = rad.q2
-    mu = mu * (qn2 * qn2 / (1.0 + qn2) ** 2)[None, :, None, None]
+    mu = mu * ((1.0 + qn2) ** 2)[None, :, None, None]
     lam = np.empty((4, n_s, n_l, T, T))
     lfac = 4.0 * np.pi / (np.arange(n_l) + 1.0)
     for s in range(n_s):

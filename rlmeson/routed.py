@@ -61,10 +61,7 @@ class ShiftedPropagator:
 
     @property
     def x2(self) -> np.ndarray:
-        q = np.sqrt(self.q2)[None, :]
-        zz = self.z[:, None]
-        m = self.eta * self.mass_gev
-        return self.q2[None, :] - m * m + 2j * m * q * zz  # (k, q)
+        return shifted_x2(self.q2, self.z, self.mass_gev, self.eta)  # (k, q)
 
     @property
     def B(self):
@@ -82,6 +79,23 @@ class ShiftedPropagator:
     @property
     def tensor_part(self):
         return self.X[3]
+
+    def dressing_at(self, radial, q2, z) -> tuple[np.ndarray, np.ndarray]:
+        """A (from the γ·q_T part) and B at off-node points (q², z), by Chebyshev
+        interpolation in z and the panels' Lagrange interpolation in ln q²."""
+        from . import quadrature as qd
+
+        q2, z = np.broadcast_arrays(np.asarray(q2, float), np.asarray(z, float))
+        n = self.z.size
+        _, w = qd.chebyshev_u_nodes(n)
+        u_nodes = qd.chebyshev_u(n - 1, self.z)  # (k, m)
+        out = []
+        for f in (self.A_transverse, self.B):  # (k, q)
+            mom = (2.0 / np.pi) * np.einsum("k,km,kq->mq", w, u_nodes, f)  # (m, q)
+            radial_vals = radial.interpolate(mom, np.log(q2.ravel()))  # (m, P)
+            uz = qd.chebyshev_u(n - 1, z.ravel())  # (P, m)
+            out.append(np.einsum("pm,mp->p", uz, radial_vals).reshape(q2.shape))
+        return out[0], out[1]
 
     def coefficients_of_S(self) -> np.ndarray:
         """Coefficients s[c, k, q] of S = (S⁻¹)⁻¹ in the same basis."""
@@ -101,6 +115,20 @@ def _invert(X, t, ginv):
     s = jnp.linalg.inv(m)
     rhs = jnp.einsum("kcab,kqba->kcq", t, s)
     return jnp.einsum("kdc,kcq->dkq", ginv, rhs)
+
+
+def shifted_x2(q2, z, mass, eta):
+    """x² = q² − η²M² + 2iηM q z on the (z, q) nodes, shape (n_z, n_q)."""
+    q = np.sqrt(q2)[None, :]
+    m = eta * mass
+    return q2[None, :] - m * m + 2j * m * q * np.asarray(z)[:, None]
+
+
+def covariant_inverse(q2, z, mass, eta, A, B):
+    """S⁻¹ = iγ·x A + B in the basis {1, γ·q_T, γ·P̂, γ·q_T γ·P̂} for A, B on the nodes."""
+    q = np.sqrt(q2)[None, :]
+    zz = np.asarray(z)[:, None]
+    return np.stack([B + 0j, 1j * q * A, A * (1j * q * zz - eta * mass), np.zeros_like(B, dtype=complex)])
 
 
 def _free_part(q2, z, mass, eta, z2, z4m):
@@ -128,6 +156,15 @@ class ShiftedSolver:
         a, b = sol.dressing(self.q2)
         self._a_real = np.asarray(a, dtype=float)
         self._b_real = np.asarray(b, dtype=float)
+
+    def free_part(self, mass, eta) -> np.ndarray:
+        """Z₂ iγ·x + Z₄m in coefficients (no self-energy)."""
+        return _free_part(self.q2, self.z, mass, eta, self.sol.z2, self.sol.z4m)
+
+    def self_energy(self, X) -> np.ndarray:
+        """Z₂² × the shifted loop applied to S = X⁻¹ (no boundary subtraction)."""
+        s = _invert(jnp.asarray(X), self._t, self._ginv)
+        return self.zf * np.asarray(self.op.apply(s))
 
     def _guess(self, mass, eta):
         q = np.sqrt(self.q2)[None, :]

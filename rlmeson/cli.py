@@ -1,0 +1,174 @@
+"""Command line: argument parsing, progress, exit codes.  No numerics here.
+
+    rlmeson quark CONFIG [--flavour NAME] [--json] [--plot FILE.png] [--no-cache]
+    rlmeson run CONFIG [--out DIR] [--no-cache] [--quiet]
+
+Exit codes: 0 success, 2 bad input (one line naming the key, the value and what is
+allowed), 1 a computation that could not be completed (one line saying why).
+Set RLMESON_DEBUG=1 to see tracebacks.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import sys
+import time
+from pathlib import Path
+
+EXIT_OK, EXIT_FAILED, EXIT_BAD_INPUT = 0, 1, 2
+
+
+class UsageError(Exception):
+    pass
+
+
+class _Parser(argparse.ArgumentParser):
+    def error(self, message):  # one line, exit 2
+        raise UsageError(message)
+
+
+def _parser() -> argparse.ArgumentParser:
+    p = _Parser(prog="rlmeson", description="Mesons in rainbow-ladder truncation.")
+    sub = p.add_subparsers(dest="command", required=True, parser_class=_Parser)
+    q = sub.add_parser("quark", help="solve the gap equation and summarise the dressed quark")
+    q.add_argument("config")
+    q.add_argument("--flavour", help="flavour to solve (default: the first in the config)")
+    q.add_argument("--json", action="store_true", help="print one JSON object on stdout")
+    q.add_argument("--plot", metavar="FILE.png", help="draw M(p²) and Z(p²)")
+    q.add_argument("--no-cache", action="store_true", help="neither read nor write the result cache")
+    r = sub.add_parser("run", help="solve the quarks and every meson of the config, write outputs")
+    r.add_argument("config")
+    r.add_argument("--out", metavar="DIR", help="output directory (default runs/<name>-<hash>)")
+    r.add_argument("--no-cache", action="store_true")
+    r.add_argument("--quiet", action="store_true", help="no progress lines")
+    return p
+
+
+def _progress(quiet: bool):
+    t0 = time.perf_counter()
+
+    def say(msg: str) -> None:
+        if not quiet:
+            print(f"[{time.perf_counter() - t0:7.1f} s] {msg}", file=sys.stderr, flush=True)
+
+    return say
+
+
+def _fmt(x, spec=".6g"):
+    return "—" if x is None else format(x, spec)
+
+
+def cmd_quark(args) -> int:
+    from . import config, pipeline, plots
+
+    cfg = config.load(args.config)
+    flavour = args.flavour or cfg.flavours[0].name
+    cfg.flavour(flavour)
+    store = pipeline.store_of(cfg, not args.no_cache)
+    say = _progress(args.json)
+    res = pipeline.solve_quark(cfg, flavour, store, say)
+    summ = res.summary()
+    if args.plot:
+        plots.mass_function({flavour: res}, args.plot)
+        summ["plot"] = str(args.plot)
+    if args.json:
+        print(json.dumps(summ, allow_nan=False))
+        return EXIT_OK
+    s = res.solution
+    lines = [
+        f"quark '{flavour}' of {cfg.name}  [{s.kernel.label}; kernel {'with' if s.kernel.z2_squared else 'without'} Z2^2]",
+        f"  m(zeta = {s.zeta_gev:g} GeV) = {1e3 * s.mass_gev:.6g} MeV" + ("   (chiral limit)" if s.chiral else ""),
+        f"  Z2 = {s.z2:.8f}   Zm = {s.zm:.8f}   Z4 = {s.z4:.8f}",
+        f"  M(0) = {res.mass_function_at_zero_gev:.6f} GeV",
+    ]
+    if res.condensate_cbrt_gev:
+        c = res.condensate_cbrt_gev
+        lines.append(f"  (-<qq>)^(1/3) = {c['zeta']:.5f} GeV at zeta, {c['1']:.5f} at 1 GeV, {c['2']:.5f} at 2 GeV (one loop)")
+    sing = res.singularity_gev2
+    lines.append(f"  nearest singularity p^2 = {_fmt(None if sing is None else sing.real, '.5f')} "
+                 f"± {_fmt(None if sing is None else sing.imag, '.5f')} i GeV^2  ->  "
+                 f"M_max(eta=1/2) = {_fmt(pipeline._finite(res.max_bound_state_mass_gev), '.4f')} GeV")
+    lines.append(f"  residual {s.residual:.1e} after {s.iterations} Newton steps on {s.radial.size} nodes; "
+                 f"{res.seconds:.2f} s" + (" (from cache)" if res.from_cache else ""))
+    if args.plot:
+        lines.append(f"  figure: {args.plot}")
+    print("\n".join(lines))
+    return EXIT_OK
+
+
+def _default_out(cfg) -> Path:
+    return Path("runs") / f"{cfg.name}-{cfg.hash()[:8]}"
+
+
+def cmd_run(args) -> int:
+    from . import config, export, pipeline, plots
+    from .channels import get as channel
+    from .store import atomic_write_text
+
+    cfg = config.load(args.config)
+    out = Path(args.out) if args.out else _default_out(cfg)
+    store = pipeline.store_of(cfg, not args.no_cache)
+    say = _progress(args.quiet)
+    result = pipeline.run(cfg, store, say)
+    out.mkdir(parents=True, exist_ok=True)
+    summ = result.summary()
+    say(f"writing {out}/")
+    export.write_results_h5(result, out / "results.h5")
+    figs = {"mass_function": "mass_function.png"}
+    plots.mass_function(result.quarks, out / "mass_function.png")
+    for name, q in result.quarks.items():
+        export.write_netcdf(export.propagator_dataset(q), out / f"propagator_{name}.nc")
+        export.write_propagator_csv(q, out / f"propagator_{name}.csv")
+    for m in result.mesons:
+        plots.eigenvalue_curve(m, out / f"eigenvalues_{m.name}.png")
+        plots.leading_amplitudes(m, channel(m.channel).basis_labels, out / f"amplitudes_{m.name}.png")
+        export.write_netcdf(export.amplitude_dataset(m), out / f"amplitude_{m.name}.nc")
+        figs[m.name] = [f"eigenvalues_{m.name}.png", f"amplitudes_{m.name}.png"]
+    summ["figures"] = figs
+    atomic_write_text(out / "summary.json", json.dumps(summ, indent=2, allow_nan=False) + "\n")
+    print(_table(result))
+    print(f"\noutputs in {out}/ (summary.json, results.h5, figures, netCDF and CSV exports)")
+    return EXIT_OK
+
+
+def _table(result) -> str:
+    conv = result.config.output.decay_constant_convention
+    rows = [f"{result.config.name}: {result.summary()['regularisation_description']}",
+            f"{'meson':<10}{'channel':<14}{'M [GeV]':>12}{'± (grid)':>10}{'f [GeV]':>11}{'± (grid)':>10}"
+            f"{'N agree':>9}{'AV-WTI':>10}{'next λ':>8}",
+            "-" * 94]
+    for m in result.mesons:
+        s = m.summary()
+        rows.append(f"{m.name:<10}{m.channel:<14}{s['mass_gev']:>12.6f}{_fmt(s['mass_error_gev'], '.1e'):>10}"
+                    f"{s['decay_constant_gev']:>11.6f}{_fmt(s['decay_constant_error_gev'], '.1e'):>10}"
+                    f"{s['normalisation_agreement']:>9.1e}{_fmt(s.get('awti_residual'), '.1e'):>10}"
+                    f"{_fmt(s['next_eigenvalue'], '.3f'):>8}")
+    rows.append(f"decay constants in the {conv} MeV convention "
+                f"({'f_pi ~ 92 MeV' if conv == '92' else 'f_pi ~ 131 MeV, sqrt 2 larger'})")
+    return "\n".join(rows)
+
+
+def main(argv=None) -> int:
+    from .config import ConfigError
+
+    try:
+        args = _parser().parse_args(argv)
+        return {"quark": cmd_quark, "run": cmd_run}[args.command](args)
+    except (ConfigError, UsageError) as e:
+        print(f"rlmeson: {e}", file=sys.stderr)
+        return EXIT_BAD_INPUT
+    except KeyboardInterrupt:
+        print("rlmeson: interrupted", file=sys.stderr)
+        return EXIT_FAILED
+    except Exception as e:  # a computation that failed: one line, no traceback
+        if os.environ.get("RLMESON_DEBUG"):
+            raise
+        msg = " ".join(str(e).split()) or type(e).__name__
+        print(f"rlmeson: {type(e).__name__}: {msg}", file=sys.stderr)
+        return EXIT_FAILED
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())

@@ -1,0 +1,537 @@
+"""Run configuration: a TOML file read into frozen, validated dataclasses (units GeV).
+
+Every bad input gives one ``ConfigError`` whose message is a single line
+
+    config error: <dotted.key> = <repr(value)>: <what is allowed>
+
+Unknown keys are errors at every level.  Numbers are ints or floats (never bools) and
+finite; ints are accepted where floats are expected.
+
+Hashes (16 hex digits of a sha256 of canonical JSON) identify what changes numbers:
+``hash()`` the whole physics, ``quark_key`` one gap-equation solution, ``meson_key`` one
+bound state.  They do not depend on key order, formatting, or on whether a default was
+written out, nor on settings that the chosen regularisation does not use (the hard
+cutoff ignores ``regulator_gev2``/``grid_end_gev2``, the translation-invariant one
+ignores ``cutoff_gev2``).  A meson without ``quarks`` takes the flavour defined first
+in the file, twice.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import hashlib
+import json
+import math
+import re
+import tomllib
+from dataclasses import dataclass
+from pathlib import Path
+
+from . import bse, channels, interactions, kernel, quadrature
+
+NAME_RE = re.compile(r"[A-Za-z0-9][A-Za-z0-9_.-]{0,63}")
+FLAVOUR_RE = re.compile(r"[A-Za-z][A-Za-z0-9_]{0,15}")
+PARAMETER_RE = re.compile(r"[A-Za-z_][A-Za-z0-9_]*")
+DECAY_CONVENTIONS = ("92", "131")
+DEFAULT_MODEL = "maris-tandy"
+DEFAULT_RENORMALISATION_POINT_GEV = 19.0
+
+
+class _Missing:
+    def __repr__(self) -> str:
+        return "<missing>"
+
+
+MISSING = _Missing()
+
+
+def _one_line(text: str) -> str:
+    return "".join(c if c.isprintable() else c.encode("unicode_escape").decode("ascii") for c in text)
+
+
+class ConfigError(ValueError):
+    """A bad configuration: ``key`` (dotted), the offending ``value``, what is ``allowed``."""
+
+    def __init__(self, key, value, allowed):
+        self.key, self.value, self.allowed = str(key), value, str(allowed)
+        try:
+            shown = repr(value)
+        except Exception:  # e.g. an int too long to print
+            shown = f"<{type(value).__name__}>"
+        if len(shown) > 120:
+            shown = shown[:117] + "..."
+        super().__init__(_one_line(f"config error: {self.key} = {shown}: {self.allowed}"))
+
+
+# ----------------------------------------------------------------------------------------
+# The resolved configuration
+
+@dataclass(frozen=True)
+class InteractionConfig:
+    model: str
+    params: tuple[tuple[str, float], ...]  # sorted by name, defaults filled in
+
+    def param_dict(self) -> dict[str, float]:
+        return dict(self.params)
+
+
+@dataclass(frozen=True)
+class KernelConfig:
+    z2_squared: bool = True
+    regularisation: str = kernel.TRANSLATION_INVARIANT
+    cutoff_gev2: float = 1.0e5
+    regulator_gev2: float = 1.0e6
+    grid_end_gev2: float = 1.0e11
+
+    def relevant(self) -> dict:
+        """The fields that the chosen regularisation uses."""
+        d = {"z2_squared": self.z2_squared, "regularisation": self.regularisation}
+        if self.regularisation == kernel.HARD_CUTOFF:
+            d["cutoff_gev2"] = self.cutoff_gev2
+        else:
+            d.update(regulator_gev2=self.regulator_gev2, grid_end_gev2=self.grid_end_gev2)
+        return d
+
+
+@dataclass(frozen=True)
+class FlavourConfig:
+    name: str
+    current_mass_gev: float
+
+
+@dataclass(frozen=True)
+class MesonConfig:
+    name: str
+    channel: str
+    quarks: tuple[str, str]
+    eta: float = 0.5
+    mass_guess_gev: float | None = None
+
+
+@dataclass(frozen=True)
+class GapNumerics:
+    q2_min_gev2: float = 1e-6
+    panel_widths: tuple[float, ...] = (4.0, 1.8, 3.6, 3.6)
+    order: int = 8
+    angular_points: int = 32
+
+
+@dataclass(frozen=True)
+class BSENumerics:
+    q2_min_gev2: float = 1e-4
+    panel_widths: tuple[float, ...] = (6.0, 1.2, 3.0, 3.0)
+    order: int = 8
+    z_points: int = 8
+    angular_points: int = 32
+    continuation: str = "shifted"
+
+
+@dataclass(frozen=True)
+class OutputConfig:
+    decay_constant_convention: str = "92"
+    cache_dir: str | None = None
+    error_bar: bool = True
+
+
+def _hash(obj) -> str:
+    text = json.dumps(obj, sort_keys=True, separators=(",", ":"), allow_nan=False)
+    return hashlib.sha256(text.encode("utf-8")).hexdigest()[:16]
+
+
+@dataclass(frozen=True)
+class Config:
+    name: str
+    description: str
+    interaction: InteractionConfig
+    kernel: KernelConfig
+    renormalisation_point_gev: float
+    flavours: tuple[FlavourConfig, ...]
+    mesons: tuple[MesonConfig, ...]
+    gap: GapNumerics
+    bse: BSENumerics
+    output: OutputConfig
+    source: str | None = None
+
+    def flavour(self, name: str) -> FlavourConfig:
+        for f in self.flavours:
+            if f.name == name:
+                return f
+        raise ConfigError("quarks", name, "one of the defined flavours " + ", ".join(f.name for f in self.flavours))
+
+    def _setup(self) -> dict:
+        return {"interaction": {"model": self.interaction.model, "params": self.interaction.param_dict()},
+                "kernel": self.kernel.relevant(),
+                "renormalisation": {"point_gev": self.renormalisation_point_gev}}
+
+    def physics_dict(self) -> dict:
+        """Everything that changes numbers (not name, description, output or source)."""
+        return {**self._setup(),
+                "flavours": {f.name: f.current_mass_gev for f in self.flavours},
+                "mesons": {m.name: {"channel": m.channel, "quarks": list(m.quarks), "eta": m.eta,
+                                    "mass_guess_gev": m.mass_guess_gev} for m in self.mesons},
+                "numerics": {"gap": dataclasses.asdict(self.gap), "bse": dataclasses.asdict(self.bse)}}
+
+    def hash(self) -> str:
+        return _hash(self.physics_dict())
+
+    def quark_key(self, flavour: str) -> str:
+        """Identifies one gap-equation solution (the flavour's name does not enter)."""
+        return _hash({**self._setup(), "current_mass_gev": self.flavour(flavour).current_mass_gev,
+                      "gap": dataclasses.asdict(self.gap)})
+
+    def meson_key(self, meson: MesonConfig) -> str:
+        """Identifies one bound state: its quarks (by quark_key), channel, eta, BSE numerics."""
+        return _hash({"quarks": [self.quark_key(q) for q in meson.quarks], "channel": meson.channel,
+                      "eta": meson.eta, "bse": dataclasses.asdict(self.bse)})
+
+    def to_dict(self) -> dict:
+        """The full resolved configuration in the nesting of the TOML file (None left out)."""
+        def clean(d):
+            return {k: list(v) if isinstance(v, tuple) else v for k, v in d.items() if v is not None}
+        return {
+            "name": self.name,
+            "description": self.description,
+            "interaction": {"model": self.interaction.model, **self.interaction.param_dict()},
+            "kernel": dataclasses.asdict(self.kernel),
+            "renormalisation": {"point_gev": self.renormalisation_point_gev},
+            "quarks": {f.name: {"current_mass_gev": f.current_mass_gev} for f in self.flavours},
+            "mesons": [clean(dataclasses.asdict(m)) for m in self.mesons],
+            "numerics": {"gap": clean(dataclasses.asdict(self.gap)), "bse": clean(dataclasses.asdict(self.bse))},
+            "output": clean(dataclasses.asdict(self.output)),
+        }
+
+
+# ----------------------------------------------------------------------------------------
+# Checking single values
+
+@dataclass(frozen=True)
+class _Range:
+    lo: float | None = None
+    hi: float | None = None
+    lo_open: bool = True
+    hi_open: bool = False
+
+    def check(self, x: float) -> bool:
+        if self.lo is not None and (x <= self.lo if self.lo_open else x < self.lo):
+            return False
+        return self.hi is None or (x < self.hi if self.hi_open else x <= self.hi)
+
+    def allowed(self) -> str:
+        parts = []
+        if self.lo is not None:
+            parts.append(f"{'>' if self.lo_open else '>='} {self.lo:g}")
+        if self.hi is not None:
+            parts.append(f"{'<' if self.hi_open else '<='} {self.hi:g}")
+        return " and ".join(parts) or "any finite number"
+
+
+class _Only:
+    def __init__(self, value: float, text: str):
+        self.value, self.text = value, text
+
+    def check(self, x: float) -> bool:
+        return x == self.value
+
+    def allowed(self) -> str:
+        return self.text
+
+
+POSITIVE = _Range(0.0)
+ANY = _Range()
+MASS = _Range(0.0, 10.0, lo_open=False)
+WIDTH = _Range(0.0, 10.0)
+BSE_Q2_MIN = _Range(0.0, 1.0, hi_open=True)
+ETA = _Only(0.5, "only 0.5 is implemented so far")
+
+
+def _real(key, v, rng) -> float:
+    """A finite number (int or float, not bool) passing ``rng.check``."""
+    if isinstance(v, bool) or not isinstance(v, (int, float)):
+        raise ConfigError(key, v, f"a number, {rng.allowed()}")
+    try:
+        x = float(v)
+    except OverflowError:
+        x = math.inf
+    if not math.isfinite(x) or not rng.check(x):
+        raise ConfigError(key, v, f"a finite number, {rng.allowed()}")
+    return x
+
+
+def _integer(key, v, lo: int, hi: int, even: bool = False) -> int:
+    what = f"an {'even ' if even else ''}integer from {lo} to {hi}"
+    if isinstance(v, bool) or not isinstance(v, int) or not lo <= v <= hi or (even and v % 2):
+        raise ConfigError(key, v, what)
+    return v
+
+
+def _boolean(key, v) -> bool:
+    if not isinstance(v, bool):
+        raise ConfigError(key, v, "true or false")
+    return v
+
+
+def _text(key, v) -> str:
+    if not isinstance(v, str):
+        raise ConfigError(key, v, "a string")
+    return v
+
+
+def _path(key, v) -> str:
+    if not isinstance(v, str) or not v:
+        raise ConfigError(key, v, "a non-empty path string")
+    return v
+
+
+def _pattern(key, v, rx) -> str:
+    if not isinstance(v, str) or not rx.fullmatch(v):
+        raise ConfigError(key, v, f"a string matching {rx.pattern}")
+    return v
+
+
+def _choice(key, v, choices) -> str:
+    if not isinstance(v, str) or v not in choices:
+        raise ConfigError(key, v, "one of " + ", ".join(repr(c) for c in choices))
+    return v
+
+
+def _widths(key, v) -> tuple[float, ...]:
+    n = len(quadrature.ZONE_BREAKS) + 1
+    if not isinstance(v, (list, tuple)) or len(v) != n:
+        raise ConfigError(key, v, f"a list of {n} numbers (one per radial zone, split at "
+                          f"{', '.join(f'{b:g}' for b in quadrature.ZONE_BREAKS)} GeV^2), each {WIDTH.allowed()}")
+    return tuple(_real(f"{key}[{i}]", x, WIDTH) for i, x in enumerate(v))
+
+
+def _quark_pair(key, v, names) -> tuple[str, str]:
+    if not isinstance(v, (list, tuple)) or len(v) != 2:
+        raise ConfigError(key, v, "a list of two flavour names")
+    return tuple(_choice(f"{key}[{i}]", q, names) for i, q in enumerate(v))
+
+
+# ----------------------------------------------------------------------------------------
+# Checking tables
+
+def _join(prefix: str, name) -> str:
+    return f"{prefix}.{name}" if prefix else str(name)
+
+
+def _table(value, key: str, allowed) -> dict:
+    if not isinstance(value, dict):
+        raise ConfigError(key or "<config>", value, "a table")
+    for k in value:
+        if k not in allowed:
+            raise ConfigError(_join(key, k), value[k], "unknown key; allowed: " + ", ".join(allowed))
+    return value
+
+
+def _sub(parent: dict, prefix: str, name: str, allowed) -> dict:
+    return _table(parent[name], _join(prefix, name), allowed) if name in parent else {}
+
+
+def _take(tbl: dict, prefix: str, name: str, default, conv, *args):
+    """tbl[name] checked by ``conv``; ``default`` if absent (MISSING: required).
+
+    An explicit None counts as absent for keys whose default is None."""
+    key = _join(prefix, name)
+    if name not in tbl or (default is None and tbl[name] is None):
+        if default is not MISSING:
+            return default
+        try:
+            conv(key, MISSING, *args)
+        except ConfigError as e:
+            raise ConfigError(key, MISSING, "required: " + e.allowed) from None
+    return conv(key, tbl[name], *args)
+
+
+def _fields(cls) -> tuple[str, ...]:
+    return tuple(f.name for f in dataclasses.fields(cls))
+
+
+TOP_KEYS = ("name", "description", "interaction", "kernel", "renormalisation", "quarks",
+            "mesons", "numerics", "output")
+MESON_KEYS = _fields(MesonConfig)
+
+
+def _interaction(t) -> InteractionConfig:
+    if not isinstance(t, dict):
+        raise ConfigError("interaction", t, "a table")
+    model = _take(t, "interaction", "model", DEFAULT_MODEL, _text)
+    given = {k: v for k, v in t.items() if k != "model"}
+    if model in interactions.registered():
+        params = interactions.get(model).parameters
+        allowed = ("model", *params)
+        _table(t, "interaction", allowed)
+        values = {k: _real(f"interaction.{k}", given[k], p) if k in given else float(p.default)
+                  for k, p in params.items()}
+    elif ":" in model:
+        try:
+            interactions.get(model)
+        except (Exception, SystemExit) as e:
+            raise ConfigError("interaction.model", model,
+                              f"an importable 'module:function' naming a callable ({type(e).__name__}: {e})")
+        values = {}
+        for k, v in given.items():
+            key = f"interaction.{k}"
+            if not isinstance(k, str) or not PARAMETER_RE.fullmatch(k):
+                raise ConfigError(key, v, f"parameter names of a user model match {PARAMETER_RE.pattern}")
+            values[k] = _real(key, v, ANY)
+    else:
+        raise ConfigError("interaction.model", model,
+                          "one of " + ", ".join(map(repr, interactions.registered())) + " or 'module:function'")
+    return InteractionConfig(model, tuple(sorted(values.items())))
+
+
+def _kernel(t: dict) -> KernelConfig:
+    p, d = "kernel", KernelConfig
+    return KernelConfig(
+        z2_squared=_take(t, p, "z2_squared", d.z2_squared, _boolean),
+        regularisation=_take(t, p, "regularisation", d.regularisation, _choice, kernel.REGULARISATIONS),
+        cutoff_gev2=_take(t, p, "cutoff_gev2", d.cutoff_gev2, _real, POSITIVE),
+        regulator_gev2=_take(t, p, "regulator_gev2", d.regulator_gev2, _real, POSITIVE),
+        grid_end_gev2=_take(t, p, "grid_end_gev2", d.grid_end_gev2, _real, POSITIVE),
+    )
+
+
+def _flavours(top: dict) -> tuple[FlavourConfig, ...]:
+    q = top.get("quarks", MISSING)
+    if not isinstance(q, dict) or not q:
+        raise ConfigError("quarks", q, "at least one flavour: a table [quarks.NAME] with current_mass_gev")
+    out = []
+    for name, t in q.items():
+        key = f"quarks.{name}"
+        if not isinstance(name, str) or not FLAVOUR_RE.fullmatch(name):
+            raise ConfigError(key, name, f"a flavour name matching {FLAVOUR_RE.pattern}")
+        t = _table(t, key, ("current_mass_gev",))
+        out.append(FlavourConfig(name, _take(t, key, "current_mass_gev", MISSING, _real, MASS)))
+    return tuple(out)
+
+
+def _mesons(top: dict, flavours: tuple[FlavourConfig, ...]) -> tuple[MesonConfig, ...]:
+    ms = top.get("mesons", [])
+    if not isinstance(ms, (list, tuple)):
+        raise ConfigError("mesons", ms, "an array of tables [[mesons]]")
+    names = tuple(f.name for f in flavours)
+    out, seen = [], set()
+    for i, m in enumerate(ms):
+        p = f"mesons[{i}]"
+        m = _table(m, p, MESON_KEYS)
+        name = _take(m, p, "name", MISSING, _pattern, NAME_RE)
+        if name in seen:
+            raise ConfigError(f"{p}.name", name, "a name not used by an earlier meson")
+        seen.add(name)
+        out.append(MesonConfig(
+            name=name,
+            channel=_take(m, p, "channel", MISSING, _choice, channels.registered()),
+            quarks=_take(m, p, "quarks", (names[0], names[0]), _quark_pair, names),
+            eta=_take(m, p, "eta", MesonConfig.eta, _real, ETA),
+            mass_guess_gev=_take(m, p, "mass_guess_gev", None, _real, POSITIVE),
+        ))
+    return tuple(out)
+
+
+def _gap(t: dict) -> GapNumerics:
+    p, d = "numerics.gap", GapNumerics
+    return GapNumerics(
+        q2_min_gev2=_take(t, p, "q2_min_gev2", d.q2_min_gev2, _real, POSITIVE),
+        panel_widths=_take(t, p, "panel_widths", d.panel_widths, _widths),
+        order=_take(t, p, "order", d.order, _integer, 4, 24),
+        angular_points=_take(t, p, "angular_points", d.angular_points, _integer, 8, 400),
+    )
+
+
+def _bse(t: dict) -> BSENumerics:
+    p, d = "numerics.bse", BSENumerics
+    return BSENumerics(
+        q2_min_gev2=_take(t, p, "q2_min_gev2", d.q2_min_gev2, _real, BSE_Q2_MIN),
+        panel_widths=_take(t, p, "panel_widths", d.panel_widths, _widths),
+        order=_take(t, p, "order", d.order, _integer, 4, 24),
+        z_points=_take(t, p, "z_points", d.z_points, _integer, 4, 64, True),
+        angular_points=_take(t, p, "angular_points", d.angular_points, _integer, 8, 400),
+        continuation=_take(t, p, "continuation", d.continuation, _choice, bse.CONTINUATIONS),
+    )
+
+
+def _output(t: dict) -> OutputConfig:
+    p, d = "output", OutputConfig
+    return OutputConfig(
+        decay_constant_convention=_take(t, p, "decay_constant_convention", d.decay_constant_convention,
+                                        _choice, DECAY_CONVENTIONS),
+        cache_dir=_take(t, p, "cache_dir", None, _path),
+        error_bar=_take(t, p, "error_bar", d.error_bar, _boolean),
+    )
+
+
+def _cross_checks(c: Config) -> None:
+    z2 = c.renormalisation_point_gev ** 2
+    k = c.kernel
+    if k.regularisation == kernel.HARD_CUTOFF:
+        if not c.gap.q2_min_gev2 < z2 < k.cutoff_gev2:
+            raise ConfigError("renormalisation.point_gev", c.renormalisation_point_gev,
+                              f"with the hard cutoff point_gev^2 must lie in (numerics.gap.q2_min_gev2, "
+                              f"kernel.cutoff_gev2) = ({c.gap.q2_min_gev2:g}, {k.cutoff_gev2:g}) GeV^2")
+    else:
+        if not z2 > c.gap.q2_min_gev2:
+            raise ConfigError("renormalisation.point_gev", c.renormalisation_point_gev,
+                              f"point_gev^2 > numerics.gap.q2_min_gev2 = {c.gap.q2_min_gev2:g} GeV^2")
+        if not z2 < k.regulator_gev2 / 10.0:
+            raise ConfigError("kernel.regulator_gev2", k.regulator_gev2,
+                              f"> 10 * renormalisation.point_gev^2 = {10.0 * z2:g} GeV^2 (Lambda_R >> zeta)")
+        if not k.grid_end_gev2 >= 1e4 * k.regulator_gev2:
+            raise ConfigError("kernel.grid_end_gev2", k.grid_end_gev2,
+                              f">= 1e4 * kernel.regulator_gev2 = {1e4 * k.regulator_gev2:g} GeV^2")
+    if c.bse.continuation == "shifted":
+        for i, m in enumerate(c.mesons):
+            if m.quarks[0] != m.quarks[1]:
+                raise ConfigError(f"mesons[{i}].quarks", list(m.quarks),
+                                  "two equal flavours with numerics.bse.continuation = 'shifted' "
+                                  "(use 'direct' for unequal ones)")
+
+
+# ----------------------------------------------------------------------------------------
+# Entry points
+
+def from_dict(d: dict, source: str | None = None) -> Config:
+    """A validated Config from a nested dict of the TOML layout."""
+    top = _table(d, "", TOP_KEYS)
+    numerics = _sub(top, "", "numerics", ("gap", "bse"))
+    name = _take(top, "", "name", MISSING, _pattern, NAME_RE)
+    flavours = _flavours(top)
+    config = Config(
+        name=name,
+        description=_take(top, "", "description", "", _text),
+        interaction=_interaction(top.get("interaction", {})),
+        kernel=_kernel(_sub(top, "", "kernel", _fields(KernelConfig))),
+        renormalisation_point_gev=_take(_sub(top, "", "renormalisation", ("point_gev",)), "renormalisation",
+                                        "point_gev", DEFAULT_RENORMALISATION_POINT_GEV, _real, POSITIVE),
+        flavours=flavours,
+        mesons=_mesons(top, flavours),
+        gap=_gap(_sub(numerics, "numerics", "gap", _fields(GapNumerics))),
+        bse=_bse(_sub(numerics, "numerics", "bse", _fields(BSENumerics))),
+        output=_output(_sub(top, "", "output", _fields(OutputConfig))),
+        source=source,
+    )
+    _cross_checks(config)
+    return config
+
+
+def parse(text: str, source: str | None = None) -> Config:
+    """A validated Config from TOML text; ``source`` names the file in messages."""
+    where = source if source is not None else "<string>"
+    if not isinstance(text, str):
+        raise ConfigError("<file>", where, "TOML text (a str)")
+    try:
+        d = tomllib.loads(text)
+    except (ValueError, RecursionError) as e:  # TOMLDecodeError is a ValueError
+        raise ConfigError("<file>", where, f"valid TOML ({e})") from None
+    return from_dict(d, source)
+
+
+def load(path) -> Config:
+    """A validated Config from a TOML file."""
+    try:
+        text = Path(path).read_text(encoding="utf-8")
+    except UnicodeDecodeError:
+        raise ConfigError("<file>", str(path), "a UTF-8 text file") from None
+    except OSError as e:
+        raise ConfigError("<file>", str(path), f"a readable TOML file ({e.strerror or type(e).__name__})") from None
+    return parse(text, str(path))

@@ -1,0 +1,367 @@
+"""The one entry point that runs the chain for a resolved config:
+
+    config → kernel + grids → quark (real axis, singularities) → bound states
+           → normalisation → observables, identities, error bars
+
+with the quark and meson stages cached in the content-addressed HDF5 store under keys
+derived from the physics inputs.  The CLI, fits and scans call ``solve_quark``,
+``solve_meson`` and ``run`` and never reach into the stages.
+"""
+
+from __future__ import annotations
+
+import math
+import time
+from dataclasses import dataclass, field
+from typing import Callable
+
+import numpy as np
+
+from . import __version__
+from . import bse, channels, gap, observables, search, singularities
+from .config import Config, MesonConfig
+from .kernel import Kernel
+from .store import Store
+
+Progress = Callable[[str], None]
+
+#: A chiral-limit Goldstone boson is massless; its amplitude and decay constant are
+#: evaluated at P² = −(this mass)², an O(M²) ≈ 1e-6 relative approximation.
+CHIRAL_PROBE_MASS_GEV = 1e-3
+
+
+def _quiet(_msg: str) -> None:
+    pass
+
+
+def kernel_of(cfg: Config) -> Kernel:
+    k = cfg.kernel
+    return Kernel(model=cfg.interaction.model, params=cfg.interaction.param_dict(),
+                  regularisation=k.regularisation, cutoff_gev2=k.cutoff_gev2,
+                  regulator_gev2=k.regulator_gev2, grid_end_gev2=k.grid_end_gev2,
+                  z2_squared=k.z2_squared)
+
+
+def gap_grid_of(cfg: Config) -> gap.GapGrid:
+    g = cfg.gap
+    return gap.GapGrid(q2_min=g.q2_min_gev2, widths=tuple(g.panel_widths), order=g.order,
+                       angular_half=g.angular_points)
+
+
+def bse_grid_of(cfg: Config) -> bse.BSEGrid:
+    b = cfg.bse
+    return bse.BSEGrid(q2_min=b.q2_min_gev2, widths=tuple(b.panel_widths), order=b.order,
+                       n_z=b.z_points, angular_half=b.angular_points)
+
+
+def store_of(cfg: Config, use_cache: bool = True) -> Store | None:
+    if not use_cache:
+        return None
+    return Store(cfg.output.cache_dir) if cfg.output.cache_dir else Store()
+
+
+# ----------------------------------------------------------------------------------------
+# Quark stage
+
+@dataclass(frozen=True)
+class QuarkResult:
+    flavour: str
+    key: str
+    solution: gap.GapSolution = field(repr=False)
+    mass_function_at_zero_gev: float
+    max_bound_state_mass_gev: float       # η = 1/2
+    singularity_gev2: complex | None
+    condensate_cbrt_gev: dict | None       # {"zeta": .., "1": .., "2": ..} in the chiral limit
+    seconds: float
+    from_cache: bool
+
+    def summary(self) -> dict:
+        s = self.solution
+        k = s.kernel
+        out = {
+            "flavour": self.flavour,
+            "Z2": s.z2,
+            "Zm": s.zm,
+            "Z4": s.z4,
+            "Z4_method": ("m → 0 limit of d(Z4 m)/dm by implicit differentiation of the chiral solve"
+                          if s.chiral else "Z4 m = m − Z2^2 Sigma_B(zeta^2) (renormalisation B(zeta^2) = m)"),
+            "current_mass_gev": s.mass_gev,
+            "renormalisation_point_gev": s.zeta_gev,
+            "mass_function_at_zero_gev": self.mass_function_at_zero_gev,
+            "mass_function_at_zero_method": "linear extrapolation of M evaluated directly at p^2 = 1e-4, 2e-4 GeV^2",
+            "residual": s.residual,
+            "iterations": s.iterations,
+            "max_bound_state_mass_gev": _finite(self.max_bound_state_mass_gev),
+            "nearest_singularity_gev2": (None if self.singularity_gev2 is None else
+                                         [self.singularity_gev2.real, self.singularity_gev2.imag]),
+            "regularisation": k.regularisation,
+            "regularisation_scale_gev2": k.scale_gev2,
+            "kernel_carries_z2_squared": k.z2_squared,
+            "grid_points": int(s.radial.size),
+            "seconds": self.seconds,
+            "from_cache": self.from_cache,
+        }
+        if self.condensate_cbrt_gev is not None:
+            out["chiral_condensate_cbrt_gev"] = self.condensate_cbrt_gev["zeta"]
+            out["chiral_condensate_cbrt_1gev_gev"] = self.condensate_cbrt_gev["1"]
+            out["chiral_condensate_cbrt_2gev_gev"] = self.condensate_cbrt_gev["2"]
+            out["chiral_condensate_evolution"] = "one loop, [ln(mu/Lambda_QCD)/ln(zeta/Lambda_QCD)]^gamma_m"
+        return out
+
+
+def _finite(x):
+    return None if x is None or not math.isfinite(x) else float(x)
+
+
+def _quark_arrays(s: gap.GapSolution):
+    return {"q2": s.q2, "A": s.A, "B": s.B, "residuals": np.asarray(s.residuals)}
+
+
+def solve_quark(cfg: Config, flavour: str, store: Store | None = None,
+                progress: Progress = _quiet) -> QuarkResult:
+    """Real-axis gap equation, M(0), singularities (and condensates when chiral)."""
+    t0 = time.perf_counter()
+    key = cfg.quark_key(flavour)
+    kern = kernel_of(cfg)
+    grid = gap_grid_of(cfg)
+    mass = cfg.flavour(flavour).current_mass_gev
+    zeta = cfg.renormalisation_point_gev
+    if store is not None:
+        hit = store.get("quark", key)
+        if hit is not None:
+            progress(f"quark {flavour}: from cache")
+            return _quark_from_entry(hit, kern, grid, flavour, key, mass, zeta, t0)
+    progress(f"quark {flavour}: solving the gap equation (m = {mass:g} GeV, zeta = {zeta:g} GeV)")
+    sol = gap.solve(kern, mass, zeta, grid)
+    m0 = sol.mass_function_at_zero()
+    progress(f"quark {flavour}: locating the propagator's complex singularities")
+    m_max, sing = singularities.max_bound_state_mass(sol, 0.5)
+    cond = None
+    if sol.chiral:
+        cond = {"zeta": sol.condensate_cbrt(), "1": sol.condensate_cbrt(1.0), "2": sol.condensate_cbrt(2.0)}
+    res = QuarkResult(flavour=flavour, key=key, solution=sol, mass_function_at_zero_gev=m0,
+                      max_bound_state_mass_gev=m_max,
+                      singularity_gev2=None if sing is None else complex(sing.s_gev2),
+                      condensate_cbrt_gev=cond, seconds=time.perf_counter() - t0, from_cache=False)
+    if store is not None:
+        attrs = {"z2": sol.z2, "z4m": sol.z4m, "z4": sol.z4, "iterations": sol.iterations,
+                 "mass_gev": mass, "zeta_gev": zeta, "m0_gev": m0, "m_max_gev": _finite(m_max),
+                 "singularity": None if sing is None else [sing.s_gev2.real, sing.s_gev2.imag],
+                 "condensate_cbrt_gev": cond, "regularisation": kern.label, "version": __version__,
+                 "config_key": key, "grid": {"points": int(sol.radial.size), "edges": list(sol.radial.edges)}}
+        store.put("quark", key, _quark_arrays(sol), attrs)
+    return res
+
+
+def _quark_from_entry(entry, kern, grid, flavour, key, mass, zeta, t0) -> QuarkResult:
+    a = entry.attrs
+    radial = grid.radial(kern.q2_max)
+    arr = entry.arrays
+    if arr["q2"].shape != radial.q2.shape or not np.allclose(arr["q2"], radial.q2, rtol=1e-12):
+        raise RuntimeError("cached quark solution does not match its grid")
+    sol = gap.GapSolution(kernel=kern, grid=grid, radial=radial, mass_gev=mass, zeta_gev=zeta,
+                          q2=radial.q2, A=arr["A"], B=arr["B"], z2=a["z2"], z4m=a["z4m"], z4=a["z4"],
+                          iterations=a["iterations"], residuals=tuple(arr["residuals"].tolist()),
+                          seconds=0.0)
+    sing = a.get("singularity")
+    m_max = a.get("m_max_gev")
+    return QuarkResult(flavour=flavour, key=key, solution=sol, mass_function_at_zero_gev=a["m0_gev"],
+                       max_bound_state_mass_gev=float("inf") if m_max is None else m_max,
+                       singularity_gev2=None if sing is None else complex(*sing),
+                       condensate_cbrt_gev=a.get("condensate_cbrt_gev"),
+                       seconds=time.perf_counter() - t0, from_cache=True)
+
+
+# ----------------------------------------------------------------------------------------
+# Meson stage
+
+@dataclass(frozen=True)
+class BoundStateCore:
+    """What one grid gives for one meson (decay constants and ρ in the √2 convention)."""
+
+    mass_gev: float
+    chiral: bool
+    normalised: observables.Normalised = field(repr=False)
+    next_eigenvalue: float | None
+    goldstone_residual: float | None
+    curve: search.EigenCurve = field(repr=False)
+    evaluations: int
+    q2: np.ndarray = field(repr=False)
+    z: np.ndarray = field(repr=False)
+    shifted_residual: float | None
+
+
+def _guess(channel: str, quark: QuarkResult, m_max: float) -> float:
+    if channel == "pseudoscalar":
+        # Gell-Mann–Oakes–Renner-like scaling m_π² ≈ 5 GeV · m (light quarks), capped
+        return min(0.8 * m_max, max(0.05, math.sqrt(5.0 * max(quark.solution.mass_gev, 1e-6))))
+    return min(0.9 * m_max, 2.0 * quark.mass_function_at_zero_gev * 0.8)
+
+
+def bound_state(cfg: Config, meson: MesonConfig, quarks: dict[str, QuarkResult],
+                grid: bse.BSEGrid, progress: Progress = _quiet) -> BoundStateCore:
+    """Mass, normalised amplitude and observables of one meson on one grid."""
+    kern = kernel_of(cfg)
+    q1, q2 = quarks[meson.quarks[0]], quarks[meson.quarks[1]]
+    ch = channels.get(meson.channel)
+    m_max = min(q1.max_bound_state_mass_gev, q2.max_bound_state_mass_gev)
+    q2sol = q2.solution if q2 is not q1 else None
+    bs = bse.BoundState(kern, ch, grid, q1.solution, q2sol, eta=meson.eta,
+                        continuation=cfg.bse.continuation)
+    chiral = q1.solution.chiral and q2.solution.chiral and ch.name == "pseudoscalar"
+    goldstone = None
+    if chiral:
+        lam0 = float(bs.eigen(0.0, k=1)[0][0].real)
+        goldstone = abs(lam0 - 1.0)
+        mass = 0.0
+        probe = CHIRAL_PROBE_MASS_GEV
+        lead = search.Leading(bs)
+        lead(probe)
+        vec = lead.vec
+        curve = lead.curve
+        curve.add(0.0, lam0)
+        evals = 2
+        m_eval, h = probe, 0.5 * probe
+    else:
+        guess = meson.mass_guess_gev or _guess(ch.name, q1, m_max)
+        progress(f"{meson.name}: searching lambda(P^2) = 1 below M_max = {m_max:.4g} GeV")
+        sol = search.find_mass(bs, guess, m_max)
+        mass, vec, curve, evals = sol.mass_gev, sol.eigenvector, sol.curve, sol.evaluations
+        m_eval, h = mass, 1e-3 * mass
+        lead = search.Leading(bs)
+    lead.vec = vec
+    lam_p, lam_m = lead(m_eval + h), lead(m_eval - h)
+    curve = _merge(curve, lead.curve)
+    nrm = observables.normalise(bs, m_eval, vec, lam_p, lam_m, h)
+    vals, _ = bs.eigen(m_eval, k=2, v0=vec)
+    nxt = float(vals[1].real) if len(vals) > 1 else None
+    shifted = bs._last.residuals[-1] if getattr(bs, "_last", None) is not None else None
+    return BoundStateCore(mass_gev=mass, chiral=chiral, normalised=nrm, next_eigenvalue=nxt,
+                          goldstone_residual=goldstone, curve=curve, evaluations=evals + 2,
+                          q2=bs.q2, z=bs.z, shifted_residual=shifted)
+
+
+def _merge(a: search.EigenCurve, b: search.EigenCurve) -> search.EigenCurve:
+    out = search.EigenCurve()
+    for m, l in zip(a.masses + b.masses, a.eigenvalues + b.eigenvalues):
+        if m not in out.masses:
+            out.add(m, l)
+    return out
+
+
+@dataclass(frozen=True)
+class MesonResult:
+    name: str
+    channel: str
+    quarks: tuple[str, str]
+    key: str
+    core: BoundStateCore = field(repr=False)
+    coarse: BoundStateCore | None = field(repr=False)
+    convention: str
+    current_masses_gev: tuple[float, float]
+    seconds: float
+    from_cache: bool = False
+
+    @property
+    def factor(self) -> float:
+        return observables.CONVENTIONS[self.convention]
+
+    def summary(self) -> dict:
+        c, n = self.core, self.core.normalised
+        f = n.decay_constant * self.factor
+        out = {
+            "name": self.name,
+            "channel": self.channel,
+            "jpc": channels.get(self.channel).jpc,
+            "quarks": list(self.quarks),
+            "mass_gev": c.mass_gev,
+            "mass_error_gev": None,
+            "decay_constant_gev": f,
+            "decay_constant_error_gev": None,
+            "decay_constant_convention": observables.CONVENTION_LABELS[self.convention],
+            "decay_constant_sqrt2_convention_gev": n.decay_constant,
+            "eigenvalue_slope_gev-2": n.eigenvalue_slope,
+            "eigenvalue_slope": n.eigenvalue_slope,
+            "normalisation": "nakanishi",
+            "normalisation_agreement": n.normalisation_agreement,
+            "next_eigenvalue": c.next_eigenvalue,
+            "bse_evaluations": c.evaluations,
+            "seconds": self.seconds,
+            "from_cache": self.from_cache,
+        }
+        if c.chiral:
+            out["goldstone_residual"] = c.goldstone_residual
+            out["evaluated_at_mass_gev"] = CHIRAL_PROBE_MASS_GEV
+        if self.coarse is not None:
+            out["mass_error_gev"] = abs(c.mass_gev - self.coarse.mass_gev)
+            out["decay_constant_error_gev"] = abs(n.decay_constant - self.coarse.normalised.decay_constant) * self.factor
+            out["error_estimate"] = "difference to a second, coarser grid"
+        if n.condensate is not None:
+            rho = n.condensate * self.factor
+            out["in_meson_condensate_gev2"] = rho
+            msum = sum(self.current_masses_gev)
+            if c.chiral or msum == 0.0:
+                out["awti_residual"] = None
+            else:
+                lhs = f * c.mass_gev**2
+                out["awti_residual"] = (lhs - msum * rho) / lhs
+        return out
+
+
+def solve_meson(cfg: Config, meson: MesonConfig, quarks: dict[str, QuarkResult],
+                progress: Progress = _quiet) -> MesonResult:
+    t0 = time.perf_counter()
+    grid = bse_grid_of(cfg)
+    progress(f"{meson.name}: building the {meson.channel} kernel and solving")
+    core = bound_state(cfg, meson, quarks, grid, progress)
+    coarse = None
+    if cfg.output.error_bar:
+        progress(f"{meson.name}: second, coarser grid for the error estimate")
+        coarse = bound_state(cfg, MesonConfig(meson.name, meson.channel, meson.quarks, meson.eta,
+                                              core.mass_gev or meson.mass_guess_gev),
+                             quarks, grid.coarser())
+    masses = tuple(quarks[q].solution.mass_gev for q in meson.quarks)
+    return MesonResult(name=meson.name, channel=meson.channel, quarks=meson.quarks,
+                       key=cfg.meson_key(meson), core=core, coarse=coarse,
+                       convention=cfg.output.decay_constant_convention, current_masses_gev=masses,
+                       seconds=time.perf_counter() - t0)
+
+
+# ----------------------------------------------------------------------------------------
+# A whole run
+
+@dataclass(frozen=True)
+class RunResult:
+    config: Config
+    quarks: dict[str, QuarkResult]
+    mesons: list[MesonResult]
+    seconds: float
+
+    def summary(self) -> dict:
+        k = kernel_of(self.config)
+        first = self.config.flavours[0].name
+        return {
+            "config": self.config.name,
+            "config_hash": self.config.hash(),
+            "package": "rlmeson",
+            "package_version": __version__,
+            "regularisation": k.regularisation,
+            "regularisation_scale_gev2": k.scale_gev2,
+            "regularisation_description": k.label,
+            "continuation": self.config.bse.continuation,
+            "quark": self.quarks[first].summary(),
+            "quarks": {n: q.summary() for n, q in self.quarks.items()},
+            "mesons": [m.summary() for m in self.mesons],
+            "seconds": self.seconds,
+        }
+
+
+def run(cfg: Config, store: Store | None = None, progress: Progress = _quiet) -> RunResult:
+    t0 = time.perf_counter()
+    needed = [f.name for f in cfg.flavours]
+    quarks = {n: solve_quark(cfg, n, store, progress) for n in needed}
+    mesons = [solve_meson(cfg, m, quarks, progress) for m in cfg.mesons]
+    return RunResult(config=cfg, quarks=quarks, mesons=mesons, seconds=time.perf_counter() - t0)
+
+
+__all__ = ["run", "solve_quark", "solve_meson", "bound_state", "kernel_of"]

@@ -1,0 +1,70 @@
+"""Shared fixtures: solved quarks and bound-state problems are expensive, so they are
+built once per session.  Every fixture uses the package defaults unless it says
+otherwise."""
+
+from __future__ import annotations
+
+import os
+
+os.environ.setdefault("RLMESON_CACHE", os.path.join(os.path.dirname(__file__), "..", ".cache", "test-store"))
+
+import numpy as np  # noqa: E402
+import pytest  # noqa: E402
+
+import rlmeson  # noqa: E402,F401
+from rlmeson import bse, channels, gap, interactions  # noqa: E402
+from rlmeson.kernel import Kernel  # noqa: E402
+
+ZETA = 19.0
+M_LIGHT = 0.00374  # GeV at ζ = 19 GeV: the light mass of the published Maris–Tandy fit (from memory)
+
+
+def mt_kernel(regularisation="hard-cutoff", **kw):
+    par = interactions.get("maris-tandy").defaults()
+    par.update(kw.pop("params", {}))
+    return Kernel("maris-tandy", par, regularisation=regularisation, **kw)
+
+
+@pytest.fixture(scope="session")
+def mt_hard():
+    return mt_kernel("hard-cutoff")
+
+
+@pytest.fixture(scope="session")
+def mt_ti():
+    return mt_kernel("translation-invariant")
+
+
+@pytest.fixture(scope="session")
+def chiral_hard(mt_hard):
+    return gap.solve(mt_hard, 0.0, ZETA)
+
+
+@pytest.fixture(scope="session")
+def light_hard(mt_hard):
+    return gap.solve(mt_hard, M_LIGHT, ZETA)
+
+
+@pytest.fixture(scope="session")
+def chiral_ti(mt_ti):
+    return gap.solve(mt_ti, 0.0, ZETA)
+
+
+@pytest.fixture(scope="session")
+def light_ti(mt_ti):
+    return gap.solve(mt_ti, M_LIGHT, ZETA)
+
+
+@pytest.fixture(scope="session")
+def pion_ti(mt_ti, light_ti):
+    return bse.BoundState(mt_ti, channels.get("pseudoscalar"), bse.BSEGrid(), light_ti)
+
+
+@pytest.fixture(scope="session")
+def pion_hard(mt_hard, light_hard):
+    return bse.BoundState(mt_hard, channels.get("pseudoscalar"), bse.BSEGrid(), light_hard)
+
+
+@pytest.fixture(scope="session")
+def rng():
+    return np.random.default_rng(20261201)
