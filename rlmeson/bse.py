@@ -61,7 +61,8 @@ class BoundState:
 
     def __init__(self, kernel: Kernel, channel: Channel, grid: BSEGrid, quark1: GapSolution,
                  quark2: GapSolution | None = None, eta: float = 0.5, kernel_operator=None,
-                 continuation: str = "shifted", subtract_boundary: bool = True):
+                 continuation: str = "shifted", subtract_boundary: bool = True,
+                 max_mass: float = float("inf")):
         self.kernel = kernel
         self.channel = channel
         self.grid = grid
@@ -81,6 +82,7 @@ class BoundState:
         self._basis = channel.basis(qh, ph)  # (n_z, n_b, n_idx, 4, 4)
         self._ginv = np.linalg.inv(channel.gram(qh, ph))  # (n_z, n_b, n_b)
         self._cache: dict[float, tuple] = {}
+        self.max_mass = float(max_mass)
         if continuation not in CONTINUATIONS:
             raise ValueError(f"unknown continuation {continuation!r}")
         self.continuation = continuation
@@ -107,7 +109,10 @@ class BoundState:
     # -------------------------------------------------------------------------------
     def propagators(self, mass: float):
         """S(q₊), S(q₋) matrices on the grid (cached per mass)."""
-        key = float(mass)
+        if abs(mass) >= self.max_mass:
+            raise ValueError(f"M = {abs(mass):.6g} GeV is beyond M_max = {self.max_mass:.6g} GeV: the "
+                             "parabola of quark momenta would enclose a propagator singularity")
+        key = mass
         hit = self._cache.get(key)
         if hit is not None:
             return hit

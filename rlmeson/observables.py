@@ -3,8 +3,8 @@ bound state found by ``bse``.
 
 Conventions (the tests pin them with exact identities):
   L(P) = N_c ∫_q (1/n_pol) Σ_μ tr[Γ̄_μ(q; −K) S(q₊) Γ_μ(q; K) S(q₋)],  Γ̄(q;K) = C Γ(−q;K)ᵀ C⁻¹,
-  canonical:   N² = dL/dP² at P = K (Γ fixed, propagators moved; central differences),
-  Nakanishi:   N² = λ′(P²) L(K)   (λ′ = dλ/dP² from the same two masses),
+  canonical:   N² = dL/dP² at P = K (Γ fixed, propagators moved; finite differences),
+  Nakanishi:   N² = λ′(P²) L(K)   (λ′ = dλ/dP² from the same masses),
 and Γ → Γ/N.  With this normalisation
   f_P = Z₂ N_c/(iM) ∫_q tr[γ₅ γ·P̂ χ],   f_V = Z₂ N_c/(3M) ∫_q Σ_μ tr[γ_μ χ_μ],
   ρ_P = −i Z₄ N_c ∫_q tr[γ₅ χ],
@@ -81,21 +81,67 @@ class Normalised:
         return abs(self.norm_canonical / self.norm_nakanishi - 1.0)
 
 
-def normalise(bs, mass: float, amp: np.ndarray, lam_plus: float, lam_minus: float, h: float,
-              method: str = "nakanishi") -> Normalised:
-    """Normalise ``amp`` (eigenvector at ``mass``) with λ(M ± h) and L(M ± h) known."""
+def _derivative_at(p2_points, values, p2):
+    """d/dP² at P² = p2 of the interpolating polynomial through (p2_points, values)."""
+    x = np.asarray(p2_points, dtype=float)
+    c = np.polynomial.polynomial.polyfit(x - p2, np.asarray(values, dtype=complex), len(x) - 1)
+    return complex(c[1])
+
+
+def derivative_masses(mass: float) -> tuple[float, ...]:
+    """Masses M(1 ± 10⁻³) at which λ and L are evaluated for the P² derivatives."""
+    if not mass > 0:
+        raise ValueError("normalisation needs M > 0 (see chiral_limit for a Goldstone boson)")
+    return (mass * (1 - 1e-3), mass * (1 + 1e-3))
+
+
+#: Masses (GeV) at which a chiral-limit Goldstone boson is solved off shell; its
+#: normalisation and observables are extrapolated to M = 0 from them (errors O(M⁴)).
+CHIRAL_PROBES_GEV = (0.01, 0.02)
+
+
+def chiral_limit(n1: "Normalised", n2: "Normalised") -> "Normalised":
+    """Richardson extrapolation in M² of two off-shell normalisations to M = 0.
+
+    At P → 0 the subleading amplitudes (F, G, H) multiply γ·P and vanish from Γ, yet
+    they contribute at O(1) to the normalisation; so the limit is taken from M > 0.
+    The amplitude kept is that at the smaller mass (O(M²) from the limit)."""
+    m1, m2 = n1.mass_gev, n2.mass_gev
+    w = m1 * m1 / (m2 * m2 - m1 * m1)
+
+    def ex(a, b):
+        return None if a is None else a + (a - b) * w
+
+    return Normalised(mass_gev=0.0, amplitude=n1.amplitude, wave_function=n1.wave_function,
+                      norm_nakanishi=ex(n1.norm_nakanishi, n2.norm_nakanishi),
+                      norm_canonical=ex(n1.norm_canonical, n2.norm_canonical),
+                      eigenvalue_slope=ex(n1.eigenvalue_slope, n2.eigenvalue_slope),
+                      decay_constant=ex(n1.decay_constant, n2.decay_constant),
+                      decay_constant_imag=ex(n1.decay_constant_imag, n2.decay_constant_imag),
+                      condensate=ex(n1.condensate, n2.condensate),
+                      condensate_imag=ex(n1.condensate_imag, n2.condensate_imag))
+
+
+def normalise(bs, mass: float, amp: np.ndarray, lam_at: dict, method: str = "nakanishi") -> Normalised:
+    """Normalise ``amp`` (the eigenvector at ``mass`` > 0) given λ at ``derivative_masses``."""
     amp = amp.reshape(bs.shape)
-    dp2 = -((mass + h) ** 2 - (mass - h) ** 2)  # P² = −M²
-    slope = (lam_plus - lam_minus) / dp2
+    ms = derivative_masses(mass)
+    p2 = [-(m * m) for m in ms]
+    slope = _derivative_at(p2, [lam_at[m] for m in ms], -mass * mass).real
     l0 = loop(bs, amp, mass)
     n_nak = slope * l0
-    n_can = (loop(bs, amp, mass + h) - loop(bs, amp, mass - h)) / dp2
+    n_can = _derivative_at(p2, [loop(bs, amp, m) for m in ms], -mass * mass)
     n2 = n_nak if method == "nakanishi" else n_can
     gamma = amp / np.sqrt(complex(n2))
-    chi = bs.wave_function(gamma, mass)
     ch = bs.channel
     fz = bs.quark1.z2 ** 0.5 * bs.quark2.z2 ** 0.5
-    f = fz * N_C * ch.decay_factor(mass) / ch.polarisations * projected_integral(bs, chi, ch.decay_projector)
+
+    def decay(m):
+        chi_m = bs.wave_function(gamma, m)
+        return fz * N_C * ch.decay_factor(m) / ch.polarisations * projected_integral(bs, chi_m, ch.decay_projector)
+
+    f = decay(mass)
+    chi = bs.wave_function(gamma, mass)
     phase = abs(f) / f if f != 0 else 1.0
     gamma = gamma * phase
     chi = chi * phase
@@ -107,7 +153,7 @@ def normalise(bs, mass: float, amp: np.ndarray, lam_plus: float, lam_minus: floa
         rho, rho_i = float(r.real), float(r.imag)
     return Normalised(mass_gev=float(mass), amplitude=gamma, wave_function=chi,
                       norm_nakanishi=complex(n_nak), norm_canonical=complex(n_can),
-                      eigenvalue_slope=float(np.real(slope)), decay_constant=float(f.real),
+                      eigenvalue_slope=float(slope), decay_constant=float(f.real),
                       decay_constant_imag=float(f.imag), condensate=rho, condensate_imag=rho_i)
 
 

@@ -19,15 +19,11 @@ import numpy as np
 
 from . import __version__
 from . import bse, channels, gap, observables, search, singularities
-from .config import Config, MesonConfig
+from .config import Config, ConfigError, MesonConfig
 from .kernel import Kernel
 from .store import Store
 
 Progress = Callable[[str], None]
-
-#: A chiral-limit Goldstone boson is massless; its amplitude and decay constant are
-#: evaluated at P² = −(this mass)², an O(M²) ≈ 1e-6 relative approximation.
-CHIRAL_PROBE_MASS_GEV = 1e-3
 
 
 def _quiet(_msg: str) -> None:
@@ -207,38 +203,48 @@ def bound_state(cfg: Config, meson: MesonConfig, quarks: dict[str, QuarkResult],
     m_max = min(q1.max_bound_state_mass_gev, q2.max_bound_state_mass_gev)
     q2sol = q2.solution if q2 is not q1 else None
     bs = bse.BoundState(kern, ch, grid, q1.solution, q2sol, eta=meson.eta,
-                        continuation=cfg.bse.continuation)
+                        continuation=cfg.bse.continuation, max_mass=m_max)
     chiral = q1.solution.chiral and q2.solution.chiral and ch.name == "pseudoscalar"
     goldstone = None
+    lead = search.Leading(bs)
     if chiral:
-        lam0 = float(bs.eigen(0.0, k=1)[0][0].real)
-        goldstone = abs(lam0 - 1.0)
-        mass = 0.0
-        probe = CHIRAL_PROBE_MASS_GEV
-        lead = search.Leading(bs)
-        lead(probe)
-        vec = lead.vec
-        curve = lead.curve
-        curve.add(0.0, lam0)
-        evals = 2
-        m_eval, h = probe, 0.5 * probe
+        goldstone = abs(lead(0.0) - 1.0)
+        norms = [_normalise_at(bs, lead, m, lead.vec) for m in observables.CHIRAL_PROBES_GEV]
+        nrm = observables.chiral_limit(*norms)
+        mass, vec, curve, evals = 0.0, lead.vec, lead.curve, len(lead.curve.masses)
+        m_eval = observables.CHIRAL_PROBES_GEV[0]
     else:
+        if meson.mass_guess_gev is not None and meson.mass_guess_gev >= m_max:
+            i = cfg.mesons.index(meson) if meson in cfg.mesons else 0
+            raise ConfigError(f"mesons[{i}].mass_guess_gev", meson.mass_guess_gev,
+                              f"below M_max = {m_max:.6g} GeV, the largest mass whose quark-momentum "
+                              "parabola stays clear of the propagator's singularities")
         guess = meson.mass_guess_gev or _guess(ch.name, q1, m_max)
         progress(f"{meson.name}: searching lambda(P^2) = 1 below M_max = {m_max:.4g} GeV")
         sol = search.find_mass(bs, guess, m_max)
-        mass, vec, curve, evals = sol.mass_gev, sol.eigenvector, sol.curve, sol.evaluations
-        m_eval, h = mass, 1e-3 * mass
-        lead = search.Leading(bs)
-    lead.vec = vec
-    lam_p, lam_m = lead(m_eval + h), lead(m_eval - h)
-    curve = _merge(curve, lead.curve)
-    nrm = observables.normalise(bs, m_eval, vec, lam_p, lam_m, h)
+        mass, vec, evals = sol.mass_gev, sol.eigenvector, sol.evaluations
+        nrm = _normalise_at(bs, lead, mass, vec)
+        curve = _merge(sol.curve, lead.curve)
+        evals += len(lead.curve.masses)
+        m_eval = mass
     vals, _ = bs.eigen(m_eval, k=2, v0=vec)
     nxt = float(vals[1].real) if len(vals) > 1 else None
     shifted = bs._last.residuals[-1] if getattr(bs, "_last", None) is not None else None
     return BoundStateCore(mass_gev=mass, chiral=chiral, normalised=nrm, next_eigenvalue=nxt,
-                          goldstone_residual=goldstone, curve=curve, evaluations=evals + 2,
+                          goldstone_residual=goldstone, curve=curve, evaluations=evals,
                           q2=bs.q2, z=bs.z, shifted_residual=shifted)
+
+
+def _normalise_at(bs, lead: search.Leading, mass: float, vec) -> observables.Normalised:
+    """Eigenvector at ``mass`` (refined from ``vec``), λ at the derivative masses, normalised."""
+    lead.vec = vec
+    lead(mass)
+    vec = lead.vec
+    lam = {}
+    for m in observables.derivative_masses(mass):
+        lead.vec = vec
+        lam[m] = lead(m)
+    return observables.normalise(bs, mass, vec, lam)
 
 
 def _merge(a: search.EigenCurve, b: search.EigenCurve) -> search.EigenCurve:
@@ -291,7 +297,6 @@ class MesonResult:
         }
         if c.chiral:
             out["goldstone_residual"] = c.goldstone_residual
-            out["evaluated_at_mass_gev"] = CHIRAL_PROBE_MASS_GEV
         if self.coarse is not None:
             out["mass_error_gev"] = abs(c.mass_gev - self.coarse.mass_gev)
             out["decay_constant_error_gev"] = abs(n.decay_constant - self.coarse.normalised.decay_constant) * self.factor
