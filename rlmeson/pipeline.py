@@ -313,9 +313,57 @@ class MesonResult:
         return out
 
 
+def _core_to_store(prefix: str, c: BoundStateCore, arrays: dict, attrs: dict) -> None:
+    n = c.normalised
+    arrays[f"{prefix}amplitude"] = n.amplitude
+    arrays[f"{prefix}wave_function"] = n.wave_function
+    arrays[f"{prefix}q2"] = c.q2
+    arrays[f"{prefix}z"] = c.z
+    ms, ls = c.curve.sorted()
+    arrays[f"{prefix}curve"] = np.stack([ms, ls])
+    attrs[f"{prefix}core"] = {
+        "mass_gev": c.mass_gev, "chiral": c.chiral, "next_eigenvalue": c.next_eigenvalue,
+        "goldstone_residual": c.goldstone_residual, "evaluations": c.evaluations,
+        "shifted_residual": c.shifted_residual,
+        "norm_nakanishi": [n.norm_nakanishi.real, n.norm_nakanishi.imag],
+        "norm_canonical": [n.norm_canonical.real, n.norm_canonical.imag],
+        "eigenvalue_slope": n.eigenvalue_slope, "decay_constant": n.decay_constant,
+        "decay_constant_imag": n.decay_constant_imag, "condensate": n.condensate,
+        "condensate_imag": n.condensate_imag}
+
+
+def _core_from_store(prefix: str, arrays: dict, attrs: dict) -> BoundStateCore:
+    a = attrs[f"{prefix}core"]
+    n = observables.Normalised(
+        mass_gev=a["mass_gev"], amplitude=arrays[f"{prefix}amplitude"],
+        wave_function=arrays[f"{prefix}wave_function"], norm_nakanishi=complex(*a["norm_nakanishi"]),
+        norm_canonical=complex(*a["norm_canonical"]), eigenvalue_slope=a["eigenvalue_slope"],
+        decay_constant=a["decay_constant"], decay_constant_imag=a["decay_constant_imag"],
+        condensate=a["condensate"], condensate_imag=a["condensate_imag"])
+    curve = search.EigenCurve()
+    for m, lam in arrays[f"{prefix}curve"].T:
+        curve.add(m, lam)
+    return BoundStateCore(mass_gev=a["mass_gev"], chiral=a["chiral"], normalised=n,
+                          next_eigenvalue=a["next_eigenvalue"], goldstone_residual=a["goldstone_residual"],
+                          curve=curve, evaluations=a["evaluations"], q2=arrays[f"{prefix}q2"],
+                          z=arrays[f"{prefix}z"], shifted_residual=a["shifted_residual"])
+
+
 def solve_meson(cfg: Config, meson: MesonConfig, quarks: dict[str, QuarkResult],
-                progress: Progress = _quiet) -> MesonResult:
+                store: Store | None = None, progress: Progress = _quiet) -> MesonResult:
+    """One meson on the configured grid, plus (``output.error_bar``) a coarser grid."""
     t0 = time.perf_counter()
+    key = cfg.meson_key(meson) + ("e" if cfg.output.error_bar else "n")
+    masses = tuple(quarks[q].solution.mass_gev for q in meson.quarks)
+    common = dict(name=meson.name, channel=meson.channel, quarks=meson.quarks, key=key,
+                  convention=cfg.output.decay_constant_convention, current_masses_gev=masses)
+    if store is not None:
+        hit = store.get("meson", key)
+        if hit is not None:
+            progress(f"{meson.name}: from cache")
+            coarse = _core_from_store("coarse_", hit.arrays, hit.attrs) if "coarse_core" in hit.attrs else None
+            return MesonResult(core=_core_from_store("", hit.arrays, hit.attrs), coarse=coarse,
+                               seconds=time.perf_counter() - t0, from_cache=True, **common)
     grid = bse_grid_of(cfg)
     progress(f"{meson.name}: building the {meson.channel} kernel and solving")
     core = bound_state(cfg, meson, quarks, grid, progress)
@@ -325,11 +373,14 @@ def solve_meson(cfg: Config, meson: MesonConfig, quarks: dict[str, QuarkResult],
         coarse = bound_state(cfg, MesonConfig(meson.name, meson.channel, meson.quarks, meson.eta,
                                               core.mass_gev or meson.mass_guess_gev),
                              quarks, grid.coarser())
-    masses = tuple(quarks[q].solution.mass_gev for q in meson.quarks)
-    return MesonResult(name=meson.name, channel=meson.channel, quarks=meson.quarks,
-                       key=cfg.meson_key(meson), core=core, coarse=coarse,
-                       convention=cfg.output.decay_constant_convention, current_masses_gev=masses,
-                       seconds=time.perf_counter() - t0)
+    res = MesonResult(core=core, coarse=coarse, seconds=time.perf_counter() - t0, **common)
+    if store is not None:
+        arrays, attrs = {}, {"version": __version__, "meson_key": key, "channel": meson.channel}
+        _core_to_store("", core, arrays, attrs)
+        if coarse is not None:
+            _core_to_store("coarse_", coarse, arrays, attrs)
+        store.put("meson", key, arrays, attrs)
+    return res
 
 
 # ----------------------------------------------------------------------------------------
@@ -365,7 +416,7 @@ def run(cfg: Config, store: Store | None = None, progress: Progress = _quiet) ->
     t0 = time.perf_counter()
     needed = [f.name for f in cfg.flavours]
     quarks = {n: solve_quark(cfg, n, store, progress) for n in needed}
-    mesons = [solve_meson(cfg, m, quarks, progress) for m in cfg.mesons]
+    mesons = [solve_meson(cfg, m, quarks, store, progress) for m in cfg.mesons]
     return RunResult(config=cfg, quarks=quarks, mesons=mesons, seconds=time.perf_counter() - t0)
 
 

@@ -58,23 +58,19 @@ def eigenvalue_curve(meson, path) -> None:
 
 
 def leading_amplitudes(meson, labels, path) -> None:
-    """|Chebyshev moment 0| of each covariant's coefficient against q²."""
+    """The leading Chebyshev moment (m = 0 for components even in z, m = 1 for odd ones)
+    of each covariant's coefficient against q²."""
+    from .export import moments
+
     plt = _plt()
     core = meson.core
-    amp = core.normalised.amplitude * meson.factor
-    w = _moment0_weights(core.z)
-    m0 = np.einsum("k,ikq->iq", w, amp)
+    mom = moments(core.normalised.amplitude * meson.factor, core.z)  # (i, m, q)
     fig, ax = plt.subplots(figsize=(6, 4))
     for i, lab in enumerate(labels):
-        ax.loglog(core.q2, np.abs(m0[i]) + 1e-300, label=lab)
+        m = int(np.argmax(np.abs(mom[i, :2]).max(axis=-1)))
+        ax.loglog(core.q2, np.abs(mom[i, m]) + 1e-300, label=f"{lab}  (m = {m})")
     ax.set_xlabel("q² [GeV²]")
-    ax.set_ylabel("|zeroth Chebyshev moment|")
+    ax.set_ylabel("|leading Chebyshev moment|")
     ax.set_title(f"{meson.name}: normalised amplitude ({meson.convention} MeV convention)", fontsize=9)
     ax.legend(fontsize=7)
     _save(fig, path)
-
-
-def _moment0_weights(z):
-    n = len(z)
-    k = np.arange(1, n + 1)
-    return (2.0 / np.pi) * np.pi / (n + 1) * np.sin(k * np.pi / (n + 1)) ** 2

@@ -1,0 +1,427 @@
+"""A content-addressed cache of numpy arrays in HDF5 files, and atomic file writes.
+
+Nothing here knows about physics.  A caller names an entry by a *kind* (a directory,
+e.g. ``"gap"``) and a *key* (normally a hash of everything the result depends on); the
+entry lives at ``<root>/<kind>/<key>.h5``.  The root is ``$RLMESON_CACHE`` if set,
+else ``$XDG_CACHE_HOME/rlmeson/store``, else ``~/.cache/rlmeson/store``.
+
+File layout (readable with plain h5py, without this package):
+
+* one dataset per array, directly under the root group, named by its dict key; real,
+  complex (h5py's usual ``{r, i}`` compound), integer or boolean, any shape, stored
+  contiguous and uncompressed in native byte order;
+* one root attribute per caller attribute.  A ``str``, ``bool``, ``int`` (that fits in
+  64 bits) or ``float`` is stored as a plain HDF5 attribute.  Everything else -- ``None``,
+  lists, dicts (nested freely), huge integers, strings containing NUL -- is stored as its
+  JSON text (``None`` becomes the string ``"null"``); the names of these attributes are
+  listed in the attribute ``json_attrs`` (itself a JSON list), so a plain-h5py reader
+  knows which strings to pass through ``json.loads``;
+* bookkeeping attributes: ``format`` = ``"rlmeson-store-1"``, ``created_utc`` (ISO 8601),
+  ``json_attrs`` and ``checksum``.  ``checksum`` is the hex SHA-256 over, for every
+  dataset in sorted name order, its name, dtype (little-endian form), shape and raw
+  bytes (C order, little-endian), followed by the canonical JSON of the caller
+  attributes (sorted keys, no spaces, ASCII only).  These four names cannot be used as
+  caller attributes.
+
+Every file is written to a temporary name in the same directory, fsynced and renamed
+into place, so a reader sees either the old entry, the new one, or none -- never half
+of one.  On reading, the checksum is recomputed; an entry that cannot be opened, lacks
+the checksum or does not match it (truncated, corrupted, edited) is deleted with a
+:class:`StoreWarning` and reported as absent, so the caller recomputes it.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable, Iterator, Mapping
+from contextlib import contextmanager
+from dataclasses import dataclass
+from datetime import datetime, timezone
+import hashlib
+import json
+import os
+from pathlib import Path
+import re
+import secrets
+import warnings
+
+import h5py
+import numpy as np
+
+FORMAT = "rlmeson-store-1"
+
+_RESERVED_ATTRS = frozenset({"format", "created_utc", "json_attrs", "checksum"})
+_NAME_RE = re.compile(r"[A-Za-z0-9_-]+")
+_DATASET_RE = re.compile(r"[A-Za-z0-9_][A-Za-z0-9_.-]*")
+_MAX_NAME_LEN = 200
+_ARRAY_KINDS = frozenset("biufc")  # bool, signed, unsigned, float, complex
+_INT64_MIN, _INT64_MAX = -(2**63), 2**63 - 1
+
+
+class StoreError(RuntimeError):
+    """The store cannot do what was asked (e.g. a bad entry cannot be removed)."""
+
+
+class StoreWarning(UserWarning):
+    """A cache entry was unreadable or failed its checksum and has been discarded."""
+
+
+@dataclass(frozen=True)
+class Entry:
+    """A cache entry as read back from disk."""
+
+    arrays: dict[str, np.ndarray]
+    attrs: dict
+    path: Path
+
+
+# ----------------------------------------------------------------------------------------
+# Locations
+
+def default_root() -> Path:
+    """``$RLMESON_CACHE``, else ``$XDG_CACHE_HOME/rlmeson/store``, else ``~/.cache/...``."""
+    env = os.environ.get("RLMESON_CACHE")
+    if env:
+        return Path(env).expanduser()
+    base = os.environ.get("XDG_CACHE_HOME")
+    base_path = Path(base).expanduser() if base else Path.home() / ".cache"
+    return base_path / "rlmeson" / "store"
+
+
+def _check_name(what: str, name: object) -> str:
+    if not isinstance(name, str) or not _NAME_RE.fullmatch(name):
+        raise ValueError(f"{what} must match [A-Za-z0-9_-]+, got {name!r}")
+    if len(name) > _MAX_NAME_LEN:
+        raise ValueError(f"{what} is longer than {_MAX_NAME_LEN} characters")
+    return name
+
+
+# ----------------------------------------------------------------------------------------
+# Atomic writes
+
+def _temp_name(final: Path) -> Path:
+    stem = final.name[:_MAX_NAME_LEN]  # keep the temporary name within filename limits
+    return final.with_name(f".{stem}.{secrets.token_hex(8)}.tmp")
+
+
+def _reserve_temp(final: Path) -> Path:
+    """Create an empty, uniquely named temporary file next to ``final``."""
+    while True:
+        tmp = _temp_name(final)
+        try:
+            fd = os.open(tmp, os.O_CREAT | os.O_EXCL | os.O_WRONLY, 0o666)
+        except FileExistsError:
+            continue
+        os.close(fd)
+        return tmp
+
+
+def _fsync_file(path: Path) -> None:
+    fd = os.open(path, os.O_RDWR)
+    try:
+        os.fsync(fd)
+    finally:
+        os.close(fd)
+
+
+def _fsync_dir(directory: Path) -> None:
+    """Make a rename durable (POSIX only; best effort)."""
+    if os.name != "posix":
+        return
+    try:
+        fd = os.open(directory, os.O_RDONLY)
+    except OSError:
+        return
+    try:
+        os.fsync(fd)
+    except OSError:
+        pass
+    finally:
+        os.close(fd)
+
+
+@contextmanager
+def atomic_path(path) -> Iterator[Path]:
+    """Yield a temporary path next to ``path``; on success move it onto ``path``.
+
+    The temporary file (``.<name>.<random>.tmp`` in the same directory, created empty)
+    is for the body to overwrite.  On normal exit it is fsynced and renamed onto
+    ``path`` with :func:`os.replace`; if the body raises, it is removed and ``path`` is
+    left as it was.  The directory must exist.
+    """
+    final = Path(path)
+    tmp = _reserve_temp(final)
+    try:
+        yield tmp
+        _fsync_file(tmp)
+        os.replace(tmp, final)
+    except BaseException:
+        tmp.unlink(missing_ok=True)
+        raise
+    _fsync_dir(final.parent)
+
+
+def atomic_write_bytes(path, data: bytes) -> None:
+    """Write ``data`` to ``path`` atomically (all or nothing)."""
+    with atomic_path(path) as tmp:
+        with open(tmp, "wb") as fh:
+            fh.write(data)
+
+
+def atomic_write_text(path, text: str, encoding: str = "utf-8") -> None:
+    """Write ``text`` to ``path`` atomically, encoded without newline translation."""
+    atomic_write_bytes(path, text.encode(encoding))
+
+
+# ----------------------------------------------------------------------------------------
+# Arrays
+
+def _prepare_arrays(arrays: Mapping[str, object]) -> dict[str, np.ndarray]:
+    """Check names and dtypes; return C-ordered, native-byte-order arrays (0-d kept 0-d)."""
+    out = {}
+    for name, value in arrays.items():
+        if not isinstance(name, str) or not _DATASET_RE.fullmatch(name):
+            raise ValueError(f"array name must match [A-Za-z0-9_][A-Za-z0-9_.-]*, got {name!r}")
+        arr = np.asarray(value)
+        if arr.dtype.kind not in _ARRAY_KINDS:
+            raise TypeError(f"array {name!r}: dtype {arr.dtype} is not bool/int/float/complex")
+        out[name] = np.asarray(arr, dtype=arr.dtype.newbyteorder("="), order="C")
+    return out
+
+
+def _hash_arrays(digest, arrays: Mapping[str, np.ndarray]) -> None:
+    for name in sorted(arrays):
+        arr = np.asarray(arrays[name])  # (not ascontiguousarray: it makes 0-d arrays 1-d)
+        arr = np.asarray(arr, dtype=arr.dtype.newbyteorder("<"), order="C")
+        raw = arr.tobytes()
+        header = f"{name}\0{arr.dtype.str}\0{arr.shape}\0{len(raw)}\0"
+        digest.update(header.encode("utf-8"))
+        digest.update(raw)
+
+
+# ----------------------------------------------------------------------------------------
+# Attributes
+
+def _canonical_json(value) -> str:
+    return json.dumps(value, sort_keys=True, separators=(",", ":"), ensure_ascii=True,
+                      allow_nan=True)
+
+
+def _normalize_value(value, where: str):
+    """Plain-Python, JSON-faithful copy of an attribute value (tuples become lists)."""
+    if value is None or isinstance(value, (bool, str)):
+        return value
+    if isinstance(value, np.bool_):
+        return bool(value)
+    if isinstance(value, (int, np.integer)):
+        return int(value)
+    if isinstance(value, (float, np.floating)):
+        return float(value)
+    if isinstance(value, (list, tuple)):
+        return [_normalize_value(v, f"{where}[{i}]") for i, v in enumerate(value)]
+    if isinstance(value, dict):
+        for k in value:
+            if not isinstance(k, str):
+                raise TypeError(f"attribute {where}: dict key {k!r} is not a str")
+        return {k: _normalize_value(v, f"{where}.{k}") for k, v in value.items()}
+    raise TypeError(f"attribute {where}: unsupported type {type(value).__name__} "
+                    "(use str/int/float/bool/None/list/dict; arrays go in datasets)")
+
+
+def _normalize_attrs(attrs: Mapping[str, object]) -> dict:
+    out = {}
+    for name, value in attrs.items():
+        if not isinstance(name, str) or not name or "\0" in name:
+            raise ValueError(f"attribute name must be a non-empty str, got {name!r}")
+        if name in _RESERVED_ATTRS:
+            raise ValueError(f"attribute name {name!r} is reserved by the store")
+        out[name] = _normalize_value(value, name)
+    return out
+
+
+def _is_plain(value) -> bool:
+    """Whether a normalized value is stored as a native HDF5 attribute (not JSON)."""
+    if isinstance(value, bool):
+        return True
+    if isinstance(value, int):
+        return _INT64_MIN <= value <= _INT64_MAX
+    if isinstance(value, float):
+        return True
+    return isinstance(value, str) and "\0" not in value
+
+
+def _encode_attr(value):
+    if isinstance(value, bool):
+        return np.bool_(value)
+    if isinstance(value, int):
+        return np.int64(value)
+    if isinstance(value, float):
+        return np.float64(value)
+    return value
+
+
+def _decode_attr(value):
+    """Plain HDF5 attribute as read by h5py -> Python value; anything else is an error."""
+    if isinstance(value, str):
+        return value
+    if isinstance(value, np.bool_):
+        return bool(value)
+    if isinstance(value, np.integer):
+        return int(value)
+    if isinstance(value, np.floating):
+        return float(value)
+    raise ValueError(f"unexpected attribute of type {type(value).__name__}")
+
+
+def _checksum(arrays: Mapping[str, np.ndarray], attrs: Mapping[str, object]) -> str:
+    digest = hashlib.sha256()
+    _hash_arrays(digest, arrays)
+    digest.update(b"attrs\0")
+    digest.update(_canonical_json(attrs).encode("ascii"))
+    return digest.hexdigest()
+
+
+# ----------------------------------------------------------------------------------------
+# HDF5 reading and writing
+
+def _write_dataset(h5: h5py.File, name: str, array: np.ndarray) -> None:
+    h5.create_dataset(name, data=array)
+
+
+def _write_file(path: Path, arrays: dict[str, np.ndarray], attrs: dict, checksum: str) -> None:
+    json_names = sorted(k for k, v in attrs.items() if not _is_plain(v))
+    with h5py.File(path, "w") as h5:
+        for name in sorted(arrays):
+            _write_dataset(h5, name, arrays[name])
+        for name, value in attrs.items():
+            h5.attrs[name] = _canonical_json(value) if name in json_names else _encode_attr(value)
+        h5.attrs["format"] = FORMAT
+        h5.attrs["created_utc"] = datetime.now(timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ")
+        h5.attrs["json_attrs"] = _canonical_json(json_names)
+        h5.attrs["checksum"] = checksum
+
+
+class _InvalidEntry(Exception):
+    """A file that opened but is not a valid store entry."""
+
+
+def _read_attrs(h5: h5py.File) -> dict:
+    json_names = json.loads(h5.attrs["json_attrs"])
+    if not isinstance(json_names, list):
+        raise _InvalidEntry("json_attrs is not a list")
+    attrs = {}
+    for name, value in h5.attrs.items():
+        if name in _RESERVED_ATTRS:
+            continue
+        if name in json_names:
+            if not isinstance(value, str):
+                raise _InvalidEntry(f"attribute {name!r} should be JSON text")
+            attrs[name] = json.loads(value)
+        else:
+            attrs[name] = _decode_attr(value)
+    return attrs
+
+
+def _read_arrays(h5: h5py.File) -> dict[str, np.ndarray]:
+    arrays = {}
+    for name, obj in h5.items():
+        if not isinstance(obj, h5py.Dataset):
+            raise _InvalidEntry(f"{name!r} is not a dataset")
+        arrays[name] = np.asarray(obj[()])
+    return arrays
+
+
+def _read_entry(path: Path) -> Entry:
+    """Read and verify an entry; raises on anything unreadable or inconsistent."""
+    with h5py.File(path, "r") as h5:
+        if h5.attrs.get("format") != FORMAT:
+            raise _InvalidEntry(f"format is {h5.attrs.get('format')!r}, not {FORMAT!r}")
+        stored = h5.attrs.get("checksum")
+        if not isinstance(stored, str):
+            raise _InvalidEntry("no checksum attribute")
+        arrays = _read_arrays(h5)
+        attrs = _read_attrs(h5)
+    if _checksum(arrays, attrs) != stored:
+        raise _InvalidEntry("checksum mismatch")
+    return Entry(arrays=arrays, attrs=attrs, path=path)
+
+
+def _file_identity(path: Path) -> tuple | None:
+    try:
+        st = os.stat(path)
+    except FileNotFoundError:
+        return None
+    return (st.st_dev, st.st_ino, st.st_size, st.st_mtime_ns)
+
+
+# ----------------------------------------------------------------------------------------
+# The store
+
+class Store:
+    """Content-addressed HDF5 cache under ``root`` (see the module docstring)."""
+
+    def __init__(self, root=None):
+        self.root = Path(root).expanduser() if root is not None else default_root()
+
+    def __repr__(self) -> str:
+        return f"Store({str(self.root)!r})"
+
+    def path(self, kind: str, key: str) -> Path:
+        """``root / kind / f"{key}.h5"``; ``kind`` and ``key`` must match [A-Za-z0-9_-]+."""
+        return self.root / _check_name("kind", kind) / f"{_check_name('key', key)}.h5"
+
+    def put(self, kind: str, key: str, arrays: Mapping[str, np.ndarray],
+            attrs: Mapping[str, object]) -> Path:
+        """Write (or replace) an entry atomically; returns its path."""
+        final = self.path(kind, key)
+        arrays = _prepare_arrays(arrays)
+        attrs = _normalize_attrs(attrs)
+        checksum = _checksum(arrays, attrs)
+        final.parent.mkdir(parents=True, exist_ok=True)
+        with atomic_path(final) as tmp:
+            _write_file(tmp, arrays, attrs, checksum)
+        return final
+
+    def get(self, kind: str, key: str) -> Entry | None:
+        """The verified entry, or None if absent or invalid (an invalid file is deleted)."""
+        path = self.path(kind, key)
+        identity = _file_identity(path)
+        if identity is None:
+            return None
+        try:
+            return _read_entry(path)
+        except Exception as exc:  # noqa: BLE001  (any failure to read means: recompute)
+            _discard(path, identity, exc)
+            return None
+
+    def fetch_or_compute(self, kind: str, key: str,
+                         compute: Callable[[], tuple[dict, dict]]) -> tuple[Entry, bool]:
+        """``(entry, hit)``: the cached entry, or on a miss ``compute()`` stored and re-read."""
+        entry = self.get(kind, key)
+        if entry is not None:
+            return entry, True
+        result = compute()
+        if not (isinstance(result, tuple) and len(result) == 2):
+            raise StoreError("compute() must return a tuple (arrays, attrs)")
+        arrays, attrs = result
+        self.put(kind, key, arrays, attrs)
+        entry = self.get(kind, key)
+        if entry is None:
+            raise StoreError(f"entry {kind}/{key} could not be read back after writing")
+        return entry, False
+
+
+def _discard(path: Path, identity: tuple, exc: Exception) -> None:
+    """Delete an invalid entry (unless it was replaced meanwhile) and warn."""
+    if _file_identity(path) is None:
+        return  # removed by someone else between stat and open: simply absent
+    reason = f"{type(exc).__name__}: {exc}"
+    if _file_identity(path) == identity:
+        try:
+            path.unlink(missing_ok=True)
+        except OSError as err:
+            raise StoreError(f"cannot remove invalid cache entry {path}: {err}") from err
+        action = "deleted"
+    else:
+        action = "left in place (replaced concurrently)"
+    warnings.warn(f"invalid cache entry {path} {action}; it will be recomputed ({reason})",
+                  StoreWarning, stacklevel=3)  # -> the caller of get()
