@@ -32,7 +32,7 @@ class BSEGrid:
     """Resolution of a Bethe–Salpeter solve."""
 
     q2_min: float = 1e-4
-    widths: tuple[float, ...] = (6.0, 1.2, 3.0, 3.0)
+    widths: tuple[float, ...] = (6.0, 2.4, 5.0, 5.0)
     order: int = 8
     n_z: int = 8
     angular_half: int = 32

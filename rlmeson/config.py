@@ -111,7 +111,7 @@ class MesonConfig:
 @dataclass(frozen=True)
 class GapNumerics:
     q2_min_gev2: float = 1e-6
-    panel_widths: tuple[float, ...] = (4.0, 1.8, 3.6, 3.6)
+    panel_widths: tuple[float, ...] = (4.0, 1.2, 3.6, 3.6)
     order: int = 8
     angular_points: int = 32
 
@@ -119,7 +119,7 @@ class GapNumerics:
 @dataclass(frozen=True)
 class BSENumerics:
     q2_min_gev2: float = 1e-4
-    panel_widths: tuple[float, ...] = (6.0, 1.2, 3.0, 3.0)
+    panel_widths: tuple[float, ...] = (6.0, 2.4, 5.0, 5.0)
     order: int = 8
     z_points: int = 8
     angular_points: int = 32

@@ -40,7 +40,7 @@ class GapGrid:
     """Numerical resolution of a gap-equation solve."""
 
     q2_min: float = 1e-6
-    widths: tuple[float, ...] = (4.0, 1.8, 3.6, 3.6)
+    widths: tuple[float, ...] = (4.0, 1.2, 3.6, 3.6)
     order: int = 8
     angular_half: int = 32
     fine_order: int = 10

@@ -167,12 +167,28 @@ class ShiftedSolver:
         return self.zf * np.asarray(self.op.apply(s))
 
     def _guess(self, mass, eta):
-        q = np.sqrt(self.q2)[None, :]
-        zz = self.z[:, None]
-        A = self._a_real[None, :]
-        B = self._b_real[None, :] + 0 * zz
-        return np.stack([B + 0j, 1j * q * A + 0 * zz, A * (1j * q * zz - eta * mass),
-                         np.zeros_like(B, dtype=complex)])
+        """Covariant start: A, B of the real-axis solution continued to x² by a
+        second-order Taylor expansion about q² (derivatives of its interpolant in ln q²)."""
+        sol = self.sol
+        t = np.log(self.q2)
+        h = 1e-3
+        vals = {}
+        for name, arr in (("A", sol.A), ("B", sol.B)):
+            f = sol.radial.interpolate(arr, np.stack([t - h, t, t + h]))
+            d1t = (f[2] - f[0]) / (2 * h)
+            d2t = (f[2] - 2 * f[1] + f[0]) / h**2
+            # d/dq² = e^{−t} d/dt,  d²/d(q²)² = e^{−2t} (d²/dt² − d/dt)
+            vals[name] = (f[1], d1t / self.q2, (d2t - d1t) / self.q2**2)
+        x2 = shifted_x2(self.q2, self.z, mass, eta)
+        dx = x2 - self.q2[None, :]
+
+        def taylor(name):
+            f0, f1, f2 = vals[name]
+            return f0[None] + f1[None] * dx + 0.5 * f2[None] * dx * dx
+
+        a = np.where(np.isfinite(taylor("A")), taylor("A"), self._a_real[None])
+        b = np.where(np.isfinite(taylor("B")), taylor("B"), self._b_real[None])
+        return covariant_inverse(self.q2, self.z, mass, eta, a, b)
 
     def solve(self, mass: float, eta: float, guess=None,
               tol: float = 1e-11, max_iter: int = 30) -> ShiftedPropagator:
@@ -187,16 +203,16 @@ class ShiftedSolver:
         if isinstance(guess, ShiftedPropagator):
             guess = [guess]
         guess = [g for g in (guess or []) if g.X.shape == free.shape and g.eta == eta]
+        candidates = [jnp.asarray(self._guess(mass, eta))]
         if len(guess) >= 2 and guess[-1].mass_gev != guess[-2].mass_gev:
             g0, g1 = guess[-2], guess[-1]
             w = (mass**2 - g1.mass_gev**2) / (g1.mass_gev**2 - g0.mass_gev**2)
-            X = jnp.asarray(g1.X + w * (g1.X - g0.X))
+            candidates.append(jnp.asarray(g1.X + w * (g1.X - g0.X)))
         elif guess:
-            X = jnp.asarray(guess[-1].X)
-        else:
-            X = jnp.asarray(self._guess(mass, eta))
+            candidates.append(jnp.asarray(guess[-1].X))
         res = lambda x: _residual(x, rhs, self.zf, self._t, self._ginv, arrays)  # noqa: E731
-        r = res(X)
+        # start from the better of the covariant Taylor guess and the previous solutions
+        X, r = min(((c, res(c)) for c in candidates), key=lambda cr: float(jnp.max(jnp.abs(cr[1]))))
         # residual relative to S⁻¹ node by node (S⁻¹ spans many decades in q)
         node_scale = jnp.sqrt(jnp.sum(jnp.abs(jnp.asarray(free)) ** 2, axis=0))
         rel = lambda r: float(jnp.max(jnp.sqrt(jnp.sum(jnp.abs(r) ** 2, axis=0)) / node_scale))  # noqa: E731
@@ -213,7 +229,7 @@ class ShiftedSolver:
             w = np.asarray(node_scale)[None].repeat(shape[0], 0).ravel()
             opw = spla.LinearOperator((n, n), dtype=complex,
                                       matvec=lambda u, op=op, w=w: op.matvec(u * w) / w)
-            du, info = spla.gmres(opw, -np.asarray(r).ravel() / w, rtol=max(1e-12, min(1e-2, 0.1 * hist[-1])),
+            du, info = spla.gmres(opw, -np.asarray(r).ravel() / w, rtol=_forcing(hist[-1], tol),
                                   atol=0.0, restart=80, maxiter=30)
             dx = du * w
             X = X + jnp.asarray(dx.reshape(shape))
@@ -225,6 +241,12 @@ class ShiftedSolver:
         return ShiftedPropagator(mass_gev=mass, eta=float(eta), q2=self.q2, z=self.z,
                                  X=np.asarray(X), iterations=it, residuals=tuple(hist),
                                  seconds=time.perf_counter() - t0, subtracted_delta=self.delta)
+
+
+def _forcing(res: float, tol: float) -> float:
+    """GMRES tolerance of an inexact Newton step: loose far from the solution, and just
+    tight enough near it that one more step reaches ``tol`` (quadratic convergence)."""
+    return float(min(0.1, max(0.3 * tol / res, res)))
 
 
 @jax.jit

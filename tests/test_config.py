@@ -74,12 +74,12 @@ continuation = "shifted"
 angular_points = 32
 z_points = 8
 order = 8
-panel_widths = [6, 1.2, 3.0, 3.0]
+panel_widths = [6, 2.4, 5.0, 5.0]
 q2_min_gev2 = 0.0001
 
 [numerics.gap]
 angular_points = 32
-panel_widths = [4.0, 1.8, 3.6, 3.6]
+panel_widths = [4.0, 1.2, 3.6, 3.6]
 q2_min_gev2 = 1e-6
 order = 8
 
@@ -141,8 +141,8 @@ def test_full_config_defaults_filled():
     pion, rho = c.mesons
     assert pion == cfg.MesonConfig("pion", "pseudoscalar", ("l", "l"), 0.5, 0.14)
     assert rho.quarks == ("l", "l") and rho.mass_guess_gev is None  # first flavour twice
-    assert c.gap == cfg.GapNumerics(1e-6, (4.0, 1.8, 3.6, 3.6), 8, 32)
-    assert c.bse == cfg.BSENumerics(1e-4, (6.0, 1.2, 3.0, 3.0), 8, 8, 32, "shifted")
+    assert c.gap == cfg.GapNumerics(1e-6, (4.0, 1.2, 3.6, 3.6), 8, 32)
+    assert c.bse == cfg.BSENumerics(1e-4, (6.0, 2.4, 5.0, 5.0), 8, 8, 32, "shifted")
     assert c.output == cfg.OutputConfig("92", "cache", True)
     assert isinstance(c.gap.q2_min_gev2, float) and isinstance(c.gap.order, int)
     with pytest.raises(dataclasses.FrozenInstanceError):

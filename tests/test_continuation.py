@@ -95,7 +95,7 @@ def test_real_shift_reproduces_the_translated_real_axis_solution(shifted_ti_fine
 @pytest.mark.parametrize("mass", [0.3, 0.5])
 def test_shifted_and_direct_agree_for_an_interaction_regular_at_zero(tame_ti, mass):
     k, sol = tame_ti
-    sp = routed.ShiftedSolver(sol, _grid(k)).solve(mass, 0.5)
+    sp = routed.ShiftedSolver(sol, _grid(k, widths=(3.0, 0.6, 3.0, 3.0))).solve(mass, 0.5)
     a, b = _direct(sol, sp)
     sel = _low(sp)
     assert np.max(np.abs(sp.A_transverse / a - 1)[:, sel]) < 1e-6

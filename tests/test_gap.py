@@ -7,7 +7,6 @@ and M(0) ≈ 0.3–0.5 GeV, Z₂ ≈ 1 (common practice); grid doubling (measure
 """
 
 import math
-import warnings
 
 import numpy as np
 import pytest
@@ -114,6 +113,7 @@ def _g_math(p):
     return g
 
 
+@pytest.mark.filterwarnings("ignore::scipy.integrate.IntegrationWarning")
 def test_self_energy_against_scipy_adaptive_quadrature(light_hard):
     """At five momenta A and B from the solver equal Z₂ + Z₂²Σ_A and Z₄m + Z₂²Σ_B with Σ
     integrated by nested scipy.integrate.quad over the solver's own (interpolated) A, B."""
