@@ -59,7 +59,7 @@ def main():
     for reg in ("hard-cutoff", "translation-invariant"):
         k = Kernel("maris-tandy", interactions.get("maris-tandy").defaults(), regularisation=reg)
         sol = gap.solve(k, 0.00374, 19.0)
-        widths = (3.5, 2.4, 2.3, 2.3) if reg == "hard-cutoff" else (3.5, 2.4, 2.3, 5.0)
+        widths = (3.5, 2.4, 2.31, 2.31) if reg == "hard-cutoff" else (7.0, 2.4, 2.31, 8.1)  # 8 panels: 64 nodes
         rad = qd.radial_grid(1e-4, k.q2_max, widths, 8)
         lg = ladder.LadderGrid(rad, 32)
         import time

@@ -43,7 +43,7 @@ class BSEGrid:
 
     def coarser(self) -> "BSEGrid":
         """A grid with wider radial panels and fewer z nodes (the second grid of an error bar)."""
-        return BSEGrid(self.q2_min, tuple(1.25 * w for w in self.widths), self.order,
+        return BSEGrid(self.q2_min, tuple(1.5 * w for w in self.widths), self.order,
                        max(4, self.n_z - 2), self.angular_half, self.fine_order)
 
 
