@@ -97,7 +97,7 @@ def test_mass_guess_beyond_m_max_names_it(tmp_path, capsys, monkeypatch):
 
 def test_console_script_runs_without_a_traceback(tmp_path):
     p = _write(tmp_path, 'name = "x"\n[quarks.l]\ncurrent_mass_gev = -1.0\n')
-    r = subprocess.run([sys.executable, "-m", "rlmeson.cli", "quark", str(p)], capture_output=True, text=True)
+    r = subprocess.run([sys.executable, "-m", "rlmeson", "quark", str(p)], capture_output=True, text=True)
     assert r.returncode == 2 and "Traceback" not in r.stderr
 
 
@@ -138,3 +138,15 @@ def test_run_writes_outputs_and_summary(tmp_path, capsys, monkeypatch):
     for f in ("mass_function.png", "eigenvalues_pi.png", "amplitudes_pi.png", "propagator_l.nc", "amplitude_pi.nc"):
         assert (out / f).stat().st_size > 0
     assert not list(out.glob("*.tmp"))
+
+
+def test_no_bound_state_below_m_max_is_a_one_line_failure(tmp_path, capsys, monkeypatch):
+    """A weak interaction binds nothing: the search reports the largest λ and M_max."""
+    monkeypatch.setenv("RLMESON_CACHE", str(tmp_path / "cache"))
+    text = ('name = "weak"\n[kernel]\nregularisation = "hard-cutoff"\n[interaction]\nstrength_gev2 = 0.05\n'
+            'uv_strength = 0.2\n[quarks.l]\ncurrent_mass_gev = 0.2\n[[mesons]]\nname = "v"\nchannel = "vector"\n'
+            '[output]\nerror_bar = false\n')
+    code, out, err = _run(["run", _write(tmp_path, text), "--out", tmp_path / "o", "--quiet"], capsys)
+    assert code == 1 and err.count("\n") == 1
+    assert "largest λ reached" in err and "M_max" in err and "nan" not in err.lower()
+    assert not (tmp_path / "o" / "summary.json").exists()
