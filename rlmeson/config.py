@@ -27,7 +27,7 @@ import tomllib
 from dataclasses import dataclass
 from pathlib import Path
 
-from . import bse, channels, interactions, kernel, quadrature
+from . import bse, channels, gap, interactions, kernel, quadrature
 
 NAME_RE = re.compile(r"[A-Za-z0-9][A-Za-z0-9_.-]{0,63}")
 FLAVOUR_RE = re.compile(r"[A-Za-z][A-Za-z0-9_]{0,15}")
@@ -75,13 +75,16 @@ class InteractionConfig:
         return dict(self.params)
 
 
+_KERNEL = {f.name: f.default for f in dataclasses.fields(kernel.Kernel)}
+
+
 @dataclass(frozen=True)
 class KernelConfig:
-    z2_squared: bool = True
-    regularisation: str = kernel.TRANSLATION_INVARIANT
-    cutoff_gev2: float = 1.0e5
-    regulator_gev2: float = 1.0e6
-    grid_end_gev2: float = 1.0e11
+    z2_squared: bool = _KERNEL["z2_squared"]
+    regularisation: str = _KERNEL["regularisation"]
+    cutoff_gev2: float = _KERNEL["cutoff_gev2"]
+    regulator_gev2: float = _KERNEL["regulator_gev2"]
+    grid_end_gev2: float = _KERNEL["grid_end_gev2"]
 
     def relevant(self) -> dict:
         """The fields that the chosen regularisation uses."""
@@ -108,22 +111,26 @@ class MesonConfig:
     mass_guess_gev: float | None = None
 
 
+# The numerical defaults are those of the solvers' grid dataclasses (one place).
+_GAP, _BSE = gap.GapGrid(), bse.BSEGrid()
+
+
 @dataclass(frozen=True)
 class GapNumerics:
-    q2_min_gev2: float = 1e-6
-    panel_widths: tuple[float, ...] = (4.0, 1.2, 3.6, 3.6)
-    order: int = 8
-    angular_points: int = 32
+    q2_min_gev2: float = _GAP.q2_min
+    panel_widths: tuple[float, ...] = _GAP.widths
+    order: int = _GAP.order
+    angular_points: int = _GAP.angular_half
 
 
 @dataclass(frozen=True)
 class BSENumerics:
-    q2_min_gev2: float = 1e-4
-    panel_widths: tuple[float, ...] = (6.0, 2.4, 5.0, 5.0)
-    order: int = 8
-    z_points: int = 8
-    angular_points: int = 32
-    continuation: str = "shifted"
+    q2_min_gev2: float = _BSE.q2_min
+    panel_widths: tuple[float, ...] = _BSE.widths
+    order: int = _BSE.order
+    z_points: int = _BSE.n_z
+    angular_points: int = _BSE.angular_half
+    continuation: str = bse.CONTINUATIONS[0]
 
 
 @dataclass(frozen=True)

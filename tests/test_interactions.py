@@ -96,7 +96,7 @@ def test_user_interaction_by_module_and_function(monkeypatch):
 
 def test_translation_invariant_regulator_multiplies_g():
     p = interactions.get("maris-tandy").defaults()
-    hard = Kernel("maris-tandy", p)
+    hard = Kernel("maris-tandy", p, regularisation="hard-cutoff")
     ti = Kernel("maris-tandy", p, regularisation="translation-invariant", regulator_gev2=1e6)
     s = np.array([1.0, 1e6, 1e8])
     assert np.allclose(np.asarray(ti.g(s)), np.asarray(hard.g(s)) * 1e6 / (s + 1e6), rtol=1e-14)
