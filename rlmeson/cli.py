@@ -87,9 +87,11 @@ def cmd_quark(args) -> int:
         c = res.condensate_cbrt_gev
         lines.append(f"  (-<qq>)^(1/3) = {c['zeta']:.5f} GeV at zeta, {c['1']:.5f} at 1 GeV, {c['2']:.5f} at 2 GeV (one loop)")
     sing = res.singularity_gev2
-    lines.append(f"  nearest singularity p^2 = {_fmt(None if sing is None else sing.real, '.5f')} "
-                 f"± {_fmt(None if sing is None else sing.imag, '.5f')} i GeV^2  ->  "
-                 f"M_max(eta=1/2) = {_fmt(pipeline._finite(res.max_bound_state_mass_gev), '.4f')} GeV")
+    if sing is not None and res.confirmed:
+        lines.append(f"  nearest singularity p^2 = {sing.real:.5f} ± {sing.imag:.5f} i GeV^2  ->  "
+                     f"M_max(eta=1/2) = {res.max_bound_state_mass_gev:.4f} GeV")
+    else:
+        lines.append(f"  M_max: {res.m_max_status()}")
     lines.append(f"  residual {s.residual:.1e} after {s.iterations} Newton steps on {s.radial.size} nodes; "
                  f"{res.seconds:.2f} s" + (" (from cache)" if res.from_cache else ""))
     if args.plot:

@@ -246,7 +246,7 @@ class _Only:
 POSITIVE = _Range(0.0)
 ANY = _Range()
 MASS = _Range(0.0, 10.0, lo_open=False)
-WIDTH = _Range(0.0, 10.0)
+WIDTH = _Range(0.05, 10.0)
 BSE_Q2_MIN = _Range(0.0, 1.0, hi_open=True)
 ETA = _Only(0.5, "only 0.5 is implemented so far")
 

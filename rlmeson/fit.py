@@ -16,8 +16,9 @@ from .config import Config, ConfigError
 @dataclass(frozen=True)
 class TuneResult:
     current_mass_gev: float
-    meson_mass_gev: float
+    meson_mass_gev: float      # evaluated at current_mass_gev
     steps: list[tuple[float, float]]
+    converged: bool
 
 
 def _with_mass(cfg: Config, flavour: str, m: float) -> Config:
@@ -39,13 +40,22 @@ def tune_current_mass(cfg: Config, flavour: str, meson_name: str, target_gev: fl
     if m0 <= 0:
         raise ConfigError(f"quarks.{flavour}.current_mass_gev", m0, "a positive starting value for the fit")
     steps = []
-    x0, y0 = m0, meson_mass(_with_mass(cfg, flavour, m0), meson_name, store) ** 2 - target_gev**2
-    steps.append((x0, (y0 + target_gev**2) ** 0.5))
-    x1 = x0 * target_gev**2 / (y0 + target_gev**2)
-    for _ in range(max_steps):
-        y1 = meson_mass(_with_mass(cfg, flavour, x1), meson_name, store) ** 2 - target_gev**2
-        steps.append((x1, (y1 + target_gev**2) ** 0.5))
-        if abs(y1) < 2 * rtol * target_gev**2:
-            break
+
+    def residual(m):
+        mm = meson_mass(_with_mass(cfg, flavour, m), meson_name, store)
+        steps.append((m, mm))
+        return mm**2 - target_gev**2
+
+    x0 = m0
+    y0 = residual(x0)
+    x1 = x0 * target_gev**2 / (y0 + target_gev**2)   # M² ∝ m to leading order
+    y1 = residual(x1)
+    converged = abs(y1) < 2 * rtol * target_gev**2
+    while not converged and len(steps) < max_steps + 2 and y1 != y0:
         x0, y0, x1 = x1, y1, x1 - y1 * (x1 - x0) / (y1 - y0)
-    return TuneResult(current_mass_gev=x1, meson_mass_gev=steps[-1][1], steps=steps)
+        if not x1 > 0:
+            break
+        y1 = residual(x1)
+        converged = abs(y1) < 2 * rtol * target_gev**2
+    best = min(steps, key=lambda s: abs(s[1] - target_gev))
+    return TuneResult(current_mass_gev=best[0], meson_mass_gev=best[1], steps=steps, converged=converged)

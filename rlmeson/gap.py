@@ -218,6 +218,9 @@ def solve(kernel: Kernel, mass_gev: float, zeta_gev: float, grid: GapGrid = GapG
         raise RuntimeError(f"gap equation did not converge: residual {hist[-1]:.3e} after {it} Newton steps")
     A, B, z2 = x[:n], x[n:2 * n], float(x[2 * n])
     zf = z2 * z2 if kernel.z2_squared else 1.0
+    if chiral and np.max(np.abs(B)) < 1e-8:
+        raise RuntimeError("the chiral-limit gap equation has only the Wigner solution B = 0 here: the "
+                           "interaction is too weak to break chiral symmetry dynamically")
     if chiral:
         z4m = 0.0
         z4 = _chiral_z4(x, args, kw, rb, q2, zf, kernel.z2_squared)
@@ -226,6 +229,9 @@ def solve(kernel: Kernel, mass_gev: float, zeta_gev: float, grid: GapGrid = GapG
         sbz = float(rb[n] @ (q2 * B / den))
         z4m = mass_gev - zf * sbz
         z4 = z4m / mass_gev
+    if not (z2 > 0 and z4 > 0):
+        raise RuntimeError(f"renormalisation at zeta = {zeta_gev:g} GeV gives Z2 = {z2:.4g}, Z4 = {z4:.4g}: "
+                           "a positive Z2 and Z4 need zeta in the perturbative region (a few GeV and above)")
     return GapSolution(kernel=kernel, grid=grid, radial=radial, mass_gev=float(mass_gev),
                        zeta_gev=float(zeta_gev), q2=q2, A=A, B=B, z2=z2, z4m=float(z4m), z4=float(z4),
                        iterations=it, residuals=tuple(hist), seconds=time.perf_counter() - t0)

@@ -75,6 +75,7 @@ class Normalised:
     decay_constant_imag: float
     condensate: float | None  # ρ, √2 convention (GeV²)
     condensate_imag: float | None
+    norm_phase: complex = 1.0  # λ′ L of the final Γ: +1 for a normalisable state, −1 a ghost
 
     @property
     def normalisation_agreement(self) -> float:
@@ -119,7 +120,8 @@ def chiral_limit(n1: "Normalised", n2: "Normalised") -> "Normalised":
                       decay_constant=ex(n1.decay_constant, n2.decay_constant),
                       decay_constant_imag=ex(n1.decay_constant_imag, n2.decay_constant_imag),
                       condensate=ex(n1.condensate, n2.condensate),
-                      condensate_imag=ex(n1.condensate_imag, n2.condensate_imag))
+                      condensate_imag=ex(n1.condensate_imag, n2.condensate_imag),
+                      norm_phase=n1.norm_phase)
 
 
 def normalise(bs, mass: float, amp: np.ndarray, lam_at: dict, method: str = "nakanishi") -> Normalised:
@@ -148,13 +150,18 @@ def normalise(bs, mass: float, amp: np.ndarray, lam_at: dict, method: str = "nak
     f = f * phase
     rho = rho_i = None
     if ch.condensate_projector is not None:
-        z4 = 0.5 * (bs.quark1.z4 + bs.quark2.z4)
+        # ρ is defined so that f M² = (m₁ + m₂) ρ: the AV-WTI carries Z₄₁m₁ + Z₄₂m₂, and
+        # Z₄ differs between flavours where B(ζ²) = m fixes it (MOM-like scheme)
+        msum = bs.quark1.mass_gev + bs.quark2.mass_gev
+        z4 = ((bs.quark1.z4m + bs.quark2.z4m) / msum if msum > 0
+              else 0.5 * (bs.quark1.z4 + bs.quark2.z4))
         r = ch.condensate_factor * z4 * N_C * projected_integral(bs, chi, ch.condensate_projector)
         rho, rho_i = float(r.real), float(r.imag)
     return Normalised(mass_gev=float(mass), amplitude=gamma, wave_function=chi,
                       norm_nakanishi=complex(n_nak), norm_canonical=complex(n_can),
                       eigenvalue_slope=float(slope), decay_constant=float(f.real),
-                      decay_constant_imag=float(f.imag), condensate=rho, condensate_imag=rho_i)
+                      decay_constant_imag=float(f.imag), condensate=rho, condensate_imag=rho_i,
+                      norm_phase=complex(phase * phase))
 
 
 def pseudoscalar_standard_basis(bs, gamma: np.ndarray, mass: float) -> np.ndarray:

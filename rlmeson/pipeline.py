@@ -26,6 +26,10 @@ from .store import Store
 Progress = Callable[[str], None]
 
 
+#: |D|/norm below which the shifted continuation confirms a singularity found directly.
+SINGULARITY_CONFIRMED = 0.1
+
+
 def _quiet(_msg: str) -> None:
     pass
 
@@ -50,6 +54,31 @@ def bse_grid_of(cfg: Config) -> bse.BSEGrid:
                        n_z=b.z_points, angular_half=b.angular_points)
 
 
+def _code_tag(cfg: Config) -> str:
+    """What besides the physics inputs decides a cached result: the package version and,
+    for a user interaction ``module:function``, a hash of that function's source."""
+    import hashlib
+    import inspect
+
+    from . import interactions
+
+    tag = __version__
+    if ":" in cfg.interaction.model:
+        try:
+            src = inspect.getsource(interactions.get(cfg.interaction.model).g)
+        except (OSError, TypeError):
+            src = repr(interactions.get(cfg.interaction.model).g)
+        tag += ":" + hashlib.sha256(src.encode()).hexdigest()[:12]
+    return tag
+
+
+def stage_key(cfg: Config, key: str) -> str:
+    """A stage's cache key: its physics hash combined with ``_code_tag``."""
+    import hashlib
+
+    return hashlib.sha256(f"{key}|{_code_tag(cfg)}".encode()).hexdigest()[:20]
+
+
 def store_of(cfg: Config, use_cache: bool = True) -> Store | None:
     if not use_cache:
         return None
@@ -65,11 +94,38 @@ class QuarkResult:
     key: str
     solution: gap.GapSolution = field(repr=False)
     mass_function_at_zero_gev: float
-    max_bound_state_mass_gev: float       # η = 1/2
+    max_bound_state_mass_gev: float       # η = 1/2, from the nearest singularity found
     singularity_gev2: complex | None
+    singularity_check: float | None       # |D|/norm there with the shifted continuation
     condensate_cbrt_gev: dict | None       # {"zeta": .., "1": .., "2": ..} in the chiral limit
     seconds: float
     from_cache: bool
+
+    @property
+    def confirmed(self) -> bool:
+        return self.singularity_check is not None and self.singularity_check < SINGULARITY_CONFIRMED
+
+    @property
+    def search_limit_gev(self) -> float:
+        """The largest mass a bound-state search may probe: M_max when the singularity is
+        confirmed, otherwise a generous bound (the direct estimate is not trusted)."""
+        if self.singularity_gev2 is None:
+            return 2.2 * abs(self.mass_function_at_zero_gev)
+        if self.confirmed:
+            return self.max_bound_state_mass_gev
+        return max(1.3 * self.max_bound_state_mass_gev, 1.8 * self.mass_function_at_zero_gev)
+
+    def m_max_status(self) -> str:
+        if self.singularity_gev2 is None:
+            return ("no singularity found in the scanned region (|p^2| up to 3 M(0)^2); bound-state "
+                    f"searches may go up to 2.2 M(0) = {self.search_limit_gev:.4g} GeV")
+        if self.confirmed:
+            return (f"singularity located with the direct continuation and confirmed with the shifted one "
+                    f"(|D|/norm = {self.singularity_check:.2g} there)")
+        return (f"not confirmed: the direct continuation has a zero at p^2 = {self.singularity_gev2.real:.4g} "
+                f"+ {self.singularity_gev2.imag:.4g} i GeV^2 (M = {self.max_bound_state_mass_gev:.4g} GeV) where the "
+                f"shifted continuation is regular (|D|/norm = {self.singularity_check:.2g}); bound-state searches "
+                f"may go up to {self.search_limit_gev:.4g} GeV")
 
     def summary(self) -> dict:
         s = self.solution
@@ -87,7 +143,9 @@ class QuarkResult:
             "mass_function_at_zero_method": "linear extrapolation of M evaluated directly at p^2 = 1e-4, 2e-4 GeV^2",
             "residual": s.residual,
             "iterations": s.iterations,
-            "max_bound_state_mass_gev": _finite(self.max_bound_state_mass_gev),
+            "max_bound_state_mass_gev": _finite(self.max_bound_state_mass_gev) if self.confirmed else None,
+            "max_bound_state_mass_status": self.m_max_status(),
+            "max_bound_state_mass_direct_estimate_gev": _finite(self.max_bound_state_mass_gev),
             "nearest_singularity_gev2": (None if self.singularity_gev2 is None else
                                          [self.singularity_gev2.real, self.singularity_gev2.imag]),
             "regularisation": k.regularisation,
@@ -117,7 +175,7 @@ def solve_quark(cfg: Config, flavour: str, store: Store | None = None,
                 progress: Progress = _quiet) -> QuarkResult:
     """Real-axis gap equation, M(0), singularities (and condensates when chiral)."""
     t0 = time.perf_counter()
-    key = cfg.quark_key(flavour)
+    key = stage_key(cfg, cfg.quark_key(flavour))
     kern = kernel_of(cfg)
     grid = gap_grid_of(cfg)
     mass = cfg.flavour(flavour).current_mass_gev
@@ -132,17 +190,23 @@ def solve_quark(cfg: Config, flavour: str, store: Store | None = None,
     m0 = sol.mass_function_at_zero()
     progress(f"quark {flavour}: locating the propagator's complex singularities")
     m_max, sing = singularities.max_bound_state_mass(sol, 0.5)
+    check = None
+    if sing is not None:
+        progress(f"quark {flavour}: checking the singularity with the shifted continuation")
+        check = singularities.check_with_shifted(sol, sing, 0.5)
     cond = None
     if sol.chiral:
         cond = {"zeta": sol.condensate_cbrt(), "1": sol.condensate_cbrt(1.0), "2": sol.condensate_cbrt(2.0)}
     res = QuarkResult(flavour=flavour, key=key, solution=sol, mass_function_at_zero_gev=m0,
                       max_bound_state_mass_gev=m_max,
                       singularity_gev2=None if sing is None else complex(sing.s_gev2),
+                      singularity_check=check,
                       condensate_cbrt_gev=cond, seconds=time.perf_counter() - t0, from_cache=False)
     if store is not None:
         attrs = {"z2": sol.z2, "z4m": sol.z4m, "z4": sol.z4, "iterations": sol.iterations,
                  "mass_gev": mass, "zeta_gev": zeta, "m0_gev": m0, "m_max_gev": _finite(m_max),
                  "singularity": None if sing is None else [sing.s_gev2.real, sing.s_gev2.imag],
+                 "singularity_check": check,
                  "condensate_cbrt_gev": cond, "regularisation": kern.label, "version": __version__,
                  "config_key": key, "grid": {"points": int(sol.radial.size), "edges": list(sol.radial.edges)}}
         store.put("quark", key, _quark_arrays(sol), attrs)
@@ -164,6 +228,7 @@ def _quark_from_entry(entry, kern, grid, flavour, key, mass, zeta, t0) -> QuarkR
     return QuarkResult(flavour=flavour, key=key, solution=sol, mass_function_at_zero_gev=a["m0_gev"],
                        max_bound_state_mass_gev=float("inf") if m_max is None else m_max,
                        singularity_gev2=None if sing is None else complex(*sing),
+                       singularity_check=a.get("singularity_check"),
                        condensate_cbrt_gev=a.get("condensate_cbrt_gev"),
                        seconds=time.perf_counter() - t0, from_cache=True)
 
@@ -200,7 +265,7 @@ def bound_state(cfg: Config, meson: MesonConfig, quarks: dict[str, QuarkResult],
     kern = kernel_of(cfg)
     q1, q2 = quarks[meson.quarks[0]], quarks[meson.quarks[1]]
     ch = channels.get(meson.channel)
-    m_max = min(q1.max_bound_state_mass_gev, q2.max_bound_state_mass_gev)
+    m_max = min(q1.search_limit_gev, q2.search_limit_gev)
     q2sol = q2.solution if q2 is not q1 else None
     bs = bse.BoundState(kern, ch, grid, q1.solution, q2sol, eta=meson.eta,
                         continuation=cfg.bse.continuation, max_mass=m_max)
@@ -290,6 +355,7 @@ class MesonResult:
             "eigenvalue_slope": n.eigenvalue_slope,
             "normalisation": "nakanishi",
             "normalisation_agreement": n.normalisation_agreement,
+            "norm_sign": float(np.real(n.norm_phase)),
             "next_eigenvalue": c.next_eigenvalue,
             "bse_evaluations": c.evaluations,
             "seconds": self.seconds,
@@ -327,6 +393,7 @@ def _core_to_store(prefix: str, c: BoundStateCore, arrays: dict, attrs: dict) ->
         "shifted_residual": c.shifted_residual,
         "norm_nakanishi": [n.norm_nakanishi.real, n.norm_nakanishi.imag],
         "norm_canonical": [n.norm_canonical.real, n.norm_canonical.imag],
+        "norm_phase": [complex(n.norm_phase).real, complex(n.norm_phase).imag],
         "eigenvalue_slope": n.eigenvalue_slope, "decay_constant": n.decay_constant,
         "decay_constant_imag": n.decay_constant_imag, "condensate": n.condensate,
         "condensate_imag": n.condensate_imag}
@@ -339,7 +406,8 @@ def _core_from_store(prefix: str, arrays: dict, attrs: dict) -> BoundStateCore:
         wave_function=arrays[f"{prefix}wave_function"], norm_nakanishi=complex(*a["norm_nakanishi"]),
         norm_canonical=complex(*a["norm_canonical"]), eigenvalue_slope=a["eigenvalue_slope"],
         decay_constant=a["decay_constant"], decay_constant_imag=a["decay_constant_imag"],
-        condensate=a["condensate"], condensate_imag=a["condensate_imag"])
+        condensate=a["condensate"], condensate_imag=a["condensate_imag"],
+        norm_phase=complex(*a["norm_phase"]))
     curve = search.EigenCurve()
     for m, lam in arrays[f"{prefix}curve"].T:
         curve.add(m, lam)
@@ -353,7 +421,7 @@ def solve_meson(cfg: Config, meson: MesonConfig, quarks: dict[str, QuarkResult],
                 store: Store | None = None, progress: Progress = _quiet) -> MesonResult:
     """One meson on the configured grid, plus (``output.error_bar``) a coarser grid."""
     t0 = time.perf_counter()
-    key = cfg.meson_key(meson) + ("e" if cfg.output.error_bar else "n")
+    key = stage_key(cfg, cfg.meson_key(meson) + ("e" if cfg.output.error_bar else "n"))
     masses = tuple(quarks[q].solution.mass_gev for q in meson.quarks)
     common = dict(name=meson.name, channel=meson.channel, quarks=meson.quarks, key=key,
                   convention=cfg.output.decay_constant_convention, current_masses_gev=masses)

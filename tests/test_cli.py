@@ -110,7 +110,7 @@ def test_quark_cache_hit_miss_and_recovery(tmp_path):
     assert second.solution.z2 == first.solution.z2 and (second.solution.B == first.solution.B).all()
     other = pipeline.solve_quark(config.parse(QUARK_CFG.format(mass=0.006)), "l", store)
     assert not other.from_cache
-    path = store.path("quark", cfg.quark_key("l"))
+    path = store.path("quark", pipeline.stage_key(cfg, cfg.quark_key("l")))
     data = bytearray(path.read_bytes())
     data[len(data) // 2: len(data) // 2 + 64] = b"\xff" * 64
     path.write_bytes(bytes(data))
