@@ -94,6 +94,7 @@ def cmd_quark(args) -> int:
         lines.append(f"  M_max: {res.m_max_status()}")
     lines.append(f"  residual {s.residual:.1e} after {s.iterations} Newton steps on {s.radial.size} nodes; "
                  f"{res.seconds:.2f} s" + (" (from cache)" if res.from_cache else ""))
+    lines += [f"  note: {n}" for n in s.notes]
     if args.plot:
         lines.append(f"  figure: {args.plot}")
     print("\n".join(lines))

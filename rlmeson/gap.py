@@ -72,6 +72,7 @@ class GapSolution:
     iterations: int
     residuals: tuple[float, ...]
     seconds: float
+    notes: tuple[str, ...] = ()
 
     @property
     def chiral(self) -> bool:
@@ -229,12 +230,17 @@ def solve(kernel: Kernel, mass_gev: float, zeta_gev: float, grid: GapGrid = GapG
         sbz = float(rb[n] @ (q2 * B / den))
         z4m = mass_gev - zf * sbz
         z4 = z4m / mass_gev
-    if not (z2 > 0 and z4 > 0):
-        raise RuntimeError(f"renormalisation at zeta = {zeta_gev:g} GeV gives Z2 = {z2:.4g}, Z4 = {z4:.4g}: "
-                           "a positive Z2 and Z4 need zeta in the perturbative region (a few GeV and above)")
+    if not z2 > 0:
+        raise RuntimeError(f"renormalisation at zeta = {zeta_gev:g} GeV gives Z2 = {z2:.4g} <= 0: "
+                           "choose zeta in the perturbative region (a few GeV and above)")
+    notes = ()
+    if z4 <= 0:
+        notes = (f"Z4 = {z4:.4g} <= 0: at zeta = {zeta_gev:g} GeV the dynamical mass exceeds the current "
+                 "mass, so B(zeta^2) = m is not a perturbative condition there (a larger zeta or mass fixes it)",)
     return GapSolution(kernel=kernel, grid=grid, radial=radial, mass_gev=float(mass_gev),
                        zeta_gev=float(zeta_gev), q2=q2, A=A, B=B, z2=z2, z4m=float(z4m), z4=float(z4),
-                       iterations=it, residuals=tuple(hist), seconds=time.perf_counter() - t0)
+                       iterations=it, residuals=tuple(hist), seconds=time.perf_counter() - t0,
+                       notes=notes)
 
 
 def _chiral_z4(x, args, kw, rb, q2, zf, z2sq):

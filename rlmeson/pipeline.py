@@ -152,6 +152,7 @@ class QuarkResult:
             "regularisation_scale_gev2": k.scale_gev2,
             "kernel_carries_z2_squared": k.z2_squared,
             "grid_points": int(s.radial.size),
+            "notes": list(s.notes),
             "seconds": self.seconds,
             "from_cache": self.from_cache,
         }
@@ -203,7 +204,7 @@ def solve_quark(cfg: Config, flavour: str, store: Store | None = None,
                       singularity_check=check,
                       condensate_cbrt_gev=cond, seconds=time.perf_counter() - t0, from_cache=False)
     if store is not None:
-        attrs = {"z2": sol.z2, "z4m": sol.z4m, "z4": sol.z4, "iterations": sol.iterations,
+        attrs = {"z2": sol.z2, "z4m": sol.z4m, "z4": sol.z4, "iterations": sol.iterations, "notes": list(sol.notes),
                  "mass_gev": mass, "zeta_gev": zeta, "m0_gev": m0, "m_max_gev": _finite(m_max),
                  "singularity": None if sing is None else [sing.s_gev2.real, sing.s_gev2.imag],
                  "singularity_check": check,
@@ -222,7 +223,7 @@ def _quark_from_entry(entry, kern, grid, flavour, key, mass, zeta, t0) -> QuarkR
     sol = gap.GapSolution(kernel=kern, grid=grid, radial=radial, mass_gev=mass, zeta_gev=zeta,
                           q2=radial.q2, A=arr["A"], B=arr["B"], z2=a["z2"], z4m=a["z4m"], z4=a["z4"],
                           iterations=a["iterations"], residuals=tuple(arr["residuals"].tolist()),
-                          seconds=0.0)
+                          seconds=0.0, notes=tuple(a.get("notes") or ()))
     sing = a.get("singularity")
     m_max = a.get("m_max_gev")
     return QuarkResult(flavour=flavour, key=key, solution=sol, mass_function_at_zero_gev=a["m0_gev"],
