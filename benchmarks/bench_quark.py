@@ -31,7 +31,6 @@ print(json.dumps({{"import": t1 - t0, "solve": t2 - t1}}))
 
 
 def main():
-    import numpy as np
 
     import rlmeson  # noqa: F401
     from rlmeson import gap, interactions, ladder, routed

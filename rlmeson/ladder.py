@@ -145,11 +145,6 @@ class LadderGrid:
     fine_order: int = 10
 
 
-def _pair_levels(pabs, q, k_res):
-    ts = 0.25 * np.maximum(np.abs(pabs - q), 0.25 * k_res) / np.sqrt(np.maximum(pabs * q, 1e-300))
-    return qd.angular_level(ts)
-
-
 @partial(jax.jit, static_argnames=("form", "n_nodes", "n_u"))
 def _moments_block(form, jparams, p, t_f, w_f, idx, lag, level, half_t, x_t, s2w_t, n_nodes: int,
                    n_u: int):
@@ -191,7 +186,7 @@ def moments(kernel: Kernel, grid: LadderGrid, n_l: int, n_s: int, block: int = 8
     Computed once per (kernel, grid) for the largest (n_l, n_s) asked so far and sliced,
     so the quark and meson operators on one grid share it.
     """
-    from .selfenergy import fine_levels
+    from .selfenergy import RuleSet, fine_levels
 
     key = (kernel.form, tuple(sorted((k, float(v)) for k, v in kernel.params.items())), grid)
     hit = _MOMENT_CACHE.get(key)
@@ -213,11 +208,10 @@ def moments(kernel: Kernel, grid: LadderGrid, n_l: int, n_s: int, block: int = 8
     outs = []
     for b in range(nb):
         sl = pp[b * block:(b + 1) * block]
-        h_min = np.clip(0.2 * k_res / sl, 1e-10, 2.0)
-        fr = qd.fine_rule(rad, np.log(sl * sl), h_min, levels=levels, order=grid.fine_order)
-        lev = _pair_levels(sl[:, None], np.sqrt(fr.q2), k_res)
+        rs = RuleSet(rad, sl * sl, k_res, levels, grid.fine_order)
+        fr = rs.fine
         outs.append(_moments_block(kernel.form, jp, jnp.asarray(sl), fr.t, fr.w, fr.idx, fr.lag,
-                                   lev, *tables, rad.size, n_u))
+                                   rs.level, *tables, rad.size, n_u))
     mu = np.asarray(jnp.concatenate(outs)[:T])  # (P, Q, n_u, 4)
     qn2 = rad.q2
     mu = mu * ((1.0 + qn2) ** 2)[None, :, None, None]

@@ -352,7 +352,6 @@ class MesonResult:
             "decay_constant_error_gev": None,
             "decay_constant_convention": observables.CONVENTION_LABELS[self.convention],
             "decay_constant_sqrt2_convention_gev": n.decay_constant,
-            "eigenvalue_slope_gev-2": n.eigenvalue_slope,
             "eigenvalue_slope": n.eigenvalue_slope,
             "normalisation": "nakanishi",
             "normalisation_agreement": n.normalisation_agreement,

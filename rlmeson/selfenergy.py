@@ -37,10 +37,11 @@ def _angle_scale(p_abs, q, k_res):
 
 
 class RuleSet:
-    """Fine radial rules and angular rules for a set of targets (numpy, built once)."""
+    """The target-adapted rules for a set of external momenta p² (real or complex; graded
+    about |p|): the fine radial rule and each (p, q) pair's angular level.  Shared by the
+    gap-equation rows and the ladder-kernel moments."""
 
-    def __init__(self, grid: qd.RadialGrid, p2: np.ndarray, k_res: float, n_half: int,
-                 levels: int, order: int):
+    def __init__(self, grid: qd.RadialGrid, p2: np.ndarray, k_res: float, levels: int, order: int):
         p2 = np.asarray(p2)
         pabs = np.sqrt(np.abs(p2))
         h_min = np.clip(0.2 * k_res / np.maximum(pabs, 1e-12), 1e-10, 2.0)
@@ -93,7 +94,7 @@ def rows(kernel: Kernel, grid: qd.RadialGrid, p2, *, n_half: int = 40, levels: i
     tables = {k: jnp.asarray(v) for k, v in qd.angular_tables(n_half).items()}
     for b in range(nb):
         sl = p2p[b * block:(b + 1) * block]
-        rs = RuleSet(grid, sl, kernel.resolution_gev, n_half, levels, order)
+        rs = RuleSet(grid, sl, kernel.resolution_gev, levels, order)
         dt = jnp.complex128 if cplx else jnp.float64
         ra, rb = _rows_block(kernel.form, jparams, jnp.asarray(sl, dtype=dt), rs.fine.t, rs.fine.w,
                              rs.fine.idx, rs.fine.lag, rs.level, tables, grid.size)

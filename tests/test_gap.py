@@ -12,8 +12,8 @@ import numpy as np
 import pytest
 from scipy import integrate
 
-from conftest import M_LIGHT, ZETA, mt_kernel
-from rlmeson import gap, interactions
+from conftest import M_LIGHT, ZETA
+from rlmeson import gap
 from rlmeson.kernel import Kernel
 
 

@@ -5,7 +5,6 @@ parabola of a bound state with η = 1/2 reaches it at M = 2m (threshold; analyti
 geometry of the parabola q² − η²M² + 2iηMqz (definition).
 """
 
-import numpy as np
 import pytest
 
 from conftest import ZETA

@@ -7,8 +7,6 @@ tolerances 1%, 1%, 1.5%, 2% from the team's table).  PDG ρ(770) mass from the
 `particle` package; RL ρ masses land 0–8% below it (common practice).
 """
 
-import dataclasses
-import math
 
 import pytest
 from particle import Particle
