@@ -33,6 +33,16 @@ from ._jax import jax, jnp
 from .kernel import C_F
 
 
+class ShiftedNotConverged(RuntimeError):
+    """The shifted gap equation did not reach its tolerance at this mass."""
+
+    def __init__(self, mass: float, residual: float):
+        super().__init__(f"shifted gap equation did not converge at M = {mass:.6g} GeV "
+                         f"(relative residual {residual:.2e})")
+        self.mass_gev = mass
+        self.residual = residual
+
+
 def boundary_delta(sol: GapSolution) -> float:
     """δ of the hard-cutoff surface term (0 for translation-invariant regularisation)."""
     k = sol.kernel
@@ -217,27 +227,38 @@ class ShiftedSolver:
         node_scale = jnp.sqrt(jnp.sum(jnp.abs(jnp.asarray(free)) ** 2, axis=0))
         rel = lambda r: float(jnp.max(jnp.sqrt(jnp.sum(jnp.abs(r) ** 2, axis=0)) / node_scale))  # noqa: E731
         hist = [rel(r)]
+        merit = lambda r: float(jnp.sqrt(jnp.mean(jnp.sum(jnp.abs(r) ** 2, axis=0) / node_scale**2)))  # noqa: E731
         it = 0
         shape = free.shape
         n = int(np.prod(shape))
+        w = np.asarray(node_scale)[None].repeat(shape[0], 0).ravel()
         while hist[-1] > tol and it < max_iter:
             Xc = X
             op = spla.LinearOperator((n, n), dtype=complex, matvec=lambda v: np.array(
                 _jvp(Xc, jnp.asarray(v.reshape(shape)), rhs, self.zf, self._t, self._ginv, arrays)).ravel())
             # inexact Newton; right-preconditioned by the node scale so that GMRES works
             # on relative quantities
-            w = np.asarray(node_scale)[None].repeat(shape[0], 0).ravel()
             opw = spla.LinearOperator((n, n), dtype=complex,
                                       matvec=lambda u, op=op, w=w: op.matvec(u * w) / w)
             du, info = spla.gmres(opw, -np.asarray(r).ravel() / w, rtol=_forcing(hist[-1], tol),
                                   atol=0.0, restart=80, maxiter=30)
-            dx = du * w
-            X = X + jnp.asarray(dx.reshape(shape))
-            r = res(X)
+            dx = jnp.asarray((du * w).reshape(shape))
+            # backtracking on the mean relative residual: far from the solution a full
+            # step can overshoot into the region where S⁻¹ nearly vanishes and Newton
+            # wanders; near it the full step is always taken (quadratic convergence)
+            m0 = merit(r)
+            step = 1.0
+            for _ in range(8):
+                Xt = X + step * dx
+                rt = res(Xt)
+                if merit(rt) <= (1.0 - 1e-4 * step) * m0:
+                    break
+                step *= 0.5
+            X, r = Xt, rt
             hist.append(rel(r))
             it += 1
         if not hist[-1] <= tol * 10:
-            raise RuntimeError(f"shifted gap equation did not converge (residual {hist[-1]:.2e})")
+            raise ShiftedNotConverged(mass, hist[-1])
         return ShiftedPropagator(mass_gev=mass, eta=float(eta), q2=self.q2, z=self.z,
                                  X=np.asarray(X), iterations=it, residuals=tuple(hist),
                                  seconds=time.perf_counter() - t0, subtracted_delta=self.delta)

@@ -103,19 +103,24 @@ def max_bound_state_mass(sol: GapSolution, eta: float = 0.5) -> tuple[float, Sin
 
 
 def check_with_shifted(sol: GapSolution, sing: Singularity, eta: float = 0.5, n_z: int = 16,
-                       widths=None) -> float:
+                       widths=None) -> float | None:
     """|D(s₀)| / (|s₀| |A|² + |B|²) with A, B from the *shifted* (analytic) continuation,
     solved at a mass just above M_max so that s₀ lies inside its parabola.
 
     Small (≲ 0.05) confirms the singularity found with the direct continuation; of order
     one means the direct continuation produced it (possible when g(0) ≠ 0) and the true
-    propagator is regular there."""
+    propagator is regular there.  None when the shifted solve does not converge there."""
     from . import bse, ladder, routed
 
     m = 1.02 * sing.max_mass(eta)
     grid = bse.BSEGrid() if widths is None else bse.BSEGrid(widths=widths)
     lg = ladder.LadderGrid(grid.radial(sol.kernel.q2_max), n_z)
-    sp = routed.ShiftedSolver(sol, lg).solve(m, eta)
+    solver = routed.ShiftedSolver(sol, lg)
+    # reach m by continuation from 0.7 m, where the covariant Taylor start is good
+    try:
+        sp = solver.solve(m, eta, guess=solver.solve(0.7 * m, eta))
+    except routed.ShiftedNotConverged:
+        return None
     s0 = complex(sing.s_gev2)
     q2 = s0.real + (eta * m) ** 2
     z = s0.imag / (2.0 * eta * m * np.sqrt(q2))

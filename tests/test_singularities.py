@@ -43,3 +43,26 @@ def test_asking_beyond_m_max_names_it(light_hard):
                         continuation="direct", max_mass=1.0)
     with pytest.raises(ValueError, match="M_max = 1"):
         bs.propagators(1.2)
+
+
+def test_shifted_continuation_confirms_the_maris_tandy_zero(light_ti):
+    """The zero found with the direct continuation is a zero of the analytic (shifted)
+    continuation too: D = s A² + B² nearly vanishes there (analytic continuation is
+    unique; the direct one differs from it only by a few 1e-4 here)."""
+    _, sing = singularities.max_bound_state_mass(light_ti, 0.5)
+    check = singularities.check_with_shifted(light_ti, sing, 0.5)
+    assert check is not None and check < 0.1
+
+
+def test_shifted_solve_converges_from_the_taylor_start_beyond_m_max(light_ti):
+    """Just past M_max the parabola encloses the zero of S⁻¹ and the covariant Taylor
+    start is poor (relative residual of order one); the damped Newton solve must still
+    converge without help from solutions at other masses (common practice: a globalised
+    Newton step keeps a poor start from wandering)."""
+    from rlmeson import bse, ladder, routed
+
+    m_max, _ = singularities.max_bound_state_mass(light_ti, 0.5)
+    lg = ladder.LadderGrid(bse.BSEGrid().radial(light_ti.kernel.q2_max), 16)
+    sp = routed.ShiftedSolver(light_ti, lg).solve(1.03 * m_max, 0.5)
+    assert sp.residuals[0] > 0.1            # the start really is poor
+    assert sp.residuals[-1] < 1e-10 and sp.iterations < 30
