@@ -233,8 +233,7 @@ class ShiftedSolver:
         n = int(np.prod(shape))
         w = np.asarray(node_scale)[None].repeat(shape[0], 0).ravel()
         while hist[-1] > tol and it < max_iter:
-            Xc = X
-            op = spla.LinearOperator((n, n), dtype=complex, matvec=lambda v: np.array(
+            op = spla.LinearOperator((n, n), dtype=complex, matvec=lambda v, Xc=X: np.array(
                 _jvp(Xc, jnp.asarray(v.reshape(shape)), rhs, self.zf, self._t, self._ginv, arrays)).ravel())
             # inexact Newton; right-preconditioned by the node scale so that GMRES works
             # on relative quantities
