@@ -122,15 +122,13 @@ class QuarkResult:
         if self.confirmed:
             return (f"singularity located with the direct continuation and confirmed with the shifted one "
                     f"(|D|/norm = {self.singularity_check:.2g} there)")
+        zero = (f"not confirmed: the direct continuation has a zero at p^2 = {self.singularity_gev2.real:.4g} "
+                f"+ {self.singularity_gev2.imag:.4g} i GeV^2 (M = {self.max_bound_state_mass_gev:.4g} GeV)")
+        limit = f"bound-state searches may go up to {self.search_limit_gev:.4g} GeV"
         if self.singularity_check is None:
-            return (f"not confirmed: the direct continuation has a zero at p^2 = {self.singularity_gev2.real:.4g} "
-                    f"+ {self.singularity_gev2.imag:.4g} i GeV^2 (M = {self.max_bound_state_mass_gev:.4g} GeV), "
-                    "but the shifted gap equation did not converge there to check it; bound-state searches "
-                    f"may go up to {self.search_limit_gev:.4g} GeV")
-        return (f"not confirmed: the direct continuation has a zero at p^2 = {self.singularity_gev2.real:.4g} "
-                f"+ {self.singularity_gev2.imag:.4g} i GeV^2 (M = {self.max_bound_state_mass_gev:.4g} GeV) where the "
-                f"shifted continuation is regular (|D|/norm = {self.singularity_check:.2g}); bound-state searches "
-                f"may go up to {self.search_limit_gev:.4g} GeV")
+            return f"{zero}, but the shifted gap equation did not converge there to check it; {limit}"
+        return (f"{zero} where the shifted continuation is regular (|D|/norm = {self.singularity_check:.2g}); "
+                f"{limit}")
 
     def summary(self) -> dict:
         s = self.solution
