@@ -1,5 +1,6 @@
 """rlmeson: mesons in rainbow-ladder truncation from the gap and Bethe–Salpeter equations."""
 
-from . import _jax  # noqa: F401  (float64 and the compilation cache, before anything else)
+# JAX is configured (float64, compilation cache) by ``rlmeson._jax``, which every module
+# that computes imports; ``import rlmeson`` and reading a config do not import JAX.
 
 __version__ = "0.1.0"

@@ -11,8 +11,6 @@ eigenvector), or all of them densely as a cross-check.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
-
 import numpy as np
 import scipy.linalg
 import scipy.sparse.linalg as spla
@@ -23,37 +21,15 @@ from . import quadrature as qd
 from .channels import Channel
 from .dirac import rest_frame_vectors
 from .gap import GapSolution
+from .grids import CONTINUATIONS, BSEGrid  # noqa: F401  (defined without JAX, for the config)
 from .kernel import Kernel
 from ._jax import jax, jnp
-
-
-@dataclass(frozen=True)
-class BSEGrid:
-    """Resolution of a Bethe–Salpeter solve."""
-
-    q2_min: float = 1e-4
-    widths: tuple[float, ...] = (6.0, 2.4, 5.0, 5.0)
-    order: int = 8
-    n_z: int = 8
-    angular_half: int = 32
-    fine_order: int = 10
-
-    def radial(self, q2_max: float) -> qd.RadialGrid:
-        return qd.radial_grid(self.q2_min, q2_max, self.widths, self.order)
-
-    def coarser(self) -> "BSEGrid":
-        """A grid with wider radial panels and fewer z nodes (the second grid of an error bar)."""
-        return BSEGrid(self.q2_min, tuple(1.5 * w for w in self.widths), self.order,
-                       max(4, self.n_z - 2), self.angular_half, self.fine_order)
 
 
 @jax.jit
 def _bse_matvec(v, g0, zf, arrays):
     chi = jnp.einsum("qkji,ikq->jkq", g0, v)
     return zf * ladder._apply(chi, *arrays)
-
-
-CONTINUATIONS = ("shifted", "direct")
 
 
 class BoundState:

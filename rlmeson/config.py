@@ -27,7 +27,7 @@ import tomllib
 from dataclasses import dataclass
 from pathlib import Path
 
-from . import bse, channels, gap, interactions, kernel, quadrature
+from . import channels, grids, interactions, kernel, quadrature
 
 NAME_RE = re.compile(r"[A-Za-z0-9][A-Za-z0-9_.-]{0,63}")
 FLAVOUR_RE = re.compile(r"[A-Za-z][A-Za-z0-9_]{0,15}")
@@ -112,7 +112,7 @@ class MesonConfig:
 
 
 # The numerical defaults are those of the solvers' grid dataclasses (one place).
-_GAP, _BSE = gap.GapGrid(), bse.BSEGrid()
+_GAP, _BSE = grids.GapGrid(), grids.BSEGrid()
 
 
 @dataclass(frozen=True)
@@ -130,7 +130,7 @@ class BSENumerics:
     order: int = _BSE.order
     z_points: int = _BSE.n_z
     angular_points: int = _BSE.angular_half
-    continuation: str = bse.CONTINUATIONS[0]
+    continuation: str = grids.CONTINUATIONS[0]
 
 
 @dataclass(frozen=True)
@@ -454,7 +454,7 @@ def _bse(t: dict) -> BSENumerics:
         order=_take(t, p, "order", d.order, _integer, 4, 24),
         z_points=_take(t, p, "z_points", d.z_points, _integer, 4, 64, True),
         angular_points=_take(t, p, "angular_points", d.angular_points, _integer, 8, 400),
-        continuation=_take(t, p, "continuation", d.continuation, _choice, bse.CONTINUATIONS),
+        continuation=_take(t, p, "continuation", d.continuation, _choice, grids.CONTINUATIONS),
     )
 
 

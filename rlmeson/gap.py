@@ -29,29 +29,11 @@ import numpy as np
 from . import quadrature as qd
 from . import selfenergy as se
 from ._jax import jax, jnp
+from .grids import GapGrid  # noqa: F401  (defined without JAX, for the config)
 from .kernel import N_C, Kernel, one_loop_condensate_factor
 
 #: The smallest momenta at which M is evaluated directly, for M(0) by extrapolation.
 M0_PROBES_GEV2 = (1e-4, 2e-4)
-
-
-@dataclass(frozen=True)
-class GapGrid:
-    """Numerical resolution of a gap-equation solve."""
-
-    q2_min: float = 1e-6
-    widths: tuple[float, ...] = (4.0, 1.2, 3.6, 3.6)
-    order: int = 8
-    angular_half: int = 32
-    fine_order: int = 10
-
-    def radial(self, q2_max: float) -> qd.RadialGrid:
-        return qd.radial_grid(self.q2_min, q2_max, self.widths, self.order)
-
-    def refined(self) -> "GapGrid":
-        """Twice the radial panels and angular points (for the convergence estimate)."""
-        return GapGrid(self.q2_min, tuple(w / 2 for w in self.widths), self.order,
-                       2 * self.angular_half, self.fine_order)
 
 
 @dataclass(frozen=True)

@@ -33,8 +33,19 @@ import math
 from dataclasses import dataclass, field
 from typing import Callable, Mapping
 
-from ._jax import jnp
 
+
+class _LazyNumpy:
+    """``jax.numpy``, imported (and configured by ``_jax``) on first use, so that reading a
+    config -- which needs the registry and the parameter ranges -- does not import JAX."""
+
+    def __getattr__(self, name):
+        from ._jax import jnp as module
+
+        return getattr(module, name)
+
+
+jnp = _LazyNumpy()
 Array = object
 GFunction = Callable[[Array, Mapping[str, float]], Array]
 

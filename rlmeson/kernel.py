@@ -21,7 +21,6 @@ from dataclasses import dataclass, field
 from typing import Mapping
 
 from . import interactions
-from ._jax import jnp
 
 HARD_CUTOFF = "hard-cutoff"
 TRANSLATION_INVARIANT = "translation-invariant"
@@ -86,6 +85,8 @@ class Kernel:
                 f"integrals to {self.grid_end_gev2:g} GeV²)")
 
     def jparams(self) -> dict:
+        from ._jax import jnp  # (here, so that reading a config does not import JAX)
+
         return {k: jnp.asarray(float(v)) for k, v in self.params.items()}
 
     @property
