@@ -24,7 +24,7 @@ import json
 import math
 import re
 import tomllib
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 
 from . import channels, grids, interactions, kernel, quadrature
@@ -70,6 +70,7 @@ class ConfigError(ValueError):
 class InteractionConfig:
     model: str
     params: tuple[tuple[str, float], ...]  # sorted by name, defaults filled in
+    given: tuple[str, ...] = field(default=(), compare=False)  # parameters written in the file
 
     def param_dict(self) -> dict[str, float]:
         return dict(self.params)
@@ -249,6 +250,14 @@ MASS = _Range(0.0, 10.0, lo_open=False)
 WIDTH = _Range(0.05, 10.0)
 BSE_Q2_MIN = _Range(0.0, 1.0, hi_open=True)
 ETA = _Only(0.5, "only 0.5 is implemented so far")
+# Regularisation scales: the solvers are checked up to these (a gap solve converges to 1e-15
+# at Λ² = 1e12 GeV² and at Λ_R² = 1e10 GeV² with integrals to 1e16 GeV²); beyond them
+# nothing changes physically and the panel count in ln q² only grows.
+CUTOFF = _Range(0.0, 1e12)
+GAP_Q2_MIN = _Range(0.0, 1e-2)     # the grid starts below M(0)'s probes and the infrared scale
+GUESS = _Range(0.0, 10.0)
+REGULATOR = _Range(0.0, 1e10)
+GRID_END = _Range(0.0, 1e16)
 
 
 def _real(key, v, rng) -> float:
@@ -299,6 +308,15 @@ def _choice(key, v, choices) -> str:
     if not isinstance(v, str) or v not in choices:
         raise ConfigError(key, v, "one of " + ", ".join(repr(c) for c in choices))
     return v
+
+
+def _convention(key, v) -> str:
+    """92 or 131, written as a number or a string (stored as the string)."""
+    text = str(v) if isinstance(v, int) and not isinstance(v, bool) else v
+    if not isinstance(text, str) or text not in DECAY_CONVENTIONS:
+        raise ConfigError(key, v, "one of " + ", ".join(DECAY_CONVENTIONS) + " (f_pi ~ 92 MeV or ~ 131 MeV; "
+                          "a number or a string)")
+    return text
 
 
 def _widths(key, v) -> tuple[float, ...]:
@@ -370,6 +388,7 @@ def _interaction(t) -> InteractionConfig:
         _table(t, "interaction", allowed)
         values = {k: _real(f"interaction.{k}", given[k], p) if k in given else float(p.default)
                   for k, p in params.items()}
+        explicit = tuple(sorted(k for k in given if k in params))
     elif ":" in model:
         try:
             interactions.get(model)
@@ -382,10 +401,12 @@ def _interaction(t) -> InteractionConfig:
             if not isinstance(k, str) or not PARAMETER_RE.fullmatch(k):
                 raise ConfigError(key, v, f"parameter names of a user model match {PARAMETER_RE.pattern}")
             values[k] = _real(key, v, ANY)
+        explicit = tuple(sorted(values))
+        interactions.probe(model, values)  # finite, right shape, traceable: or one line
     else:
         raise ConfigError("interaction.model", model,
                           "one of " + ", ".join(map(repr, interactions.registered())) + " or 'module:function'")
-    return InteractionConfig(model, tuple(sorted(values.items())))
+    return InteractionConfig(model, tuple(sorted(values.items())), explicit)
 
 
 def _kernel(t: dict) -> KernelConfig:
@@ -393,9 +414,9 @@ def _kernel(t: dict) -> KernelConfig:
     return KernelConfig(
         z2_squared=_take(t, p, "z2_squared", d.z2_squared, _boolean),
         regularisation=_take(t, p, "regularisation", d.regularisation, _choice, kernel.REGULARISATIONS),
-        cutoff_gev2=_take(t, p, "cutoff_gev2", d.cutoff_gev2, _real, POSITIVE),
-        regulator_gev2=_take(t, p, "regulator_gev2", d.regulator_gev2, _real, POSITIVE),
-        grid_end_gev2=_take(t, p, "grid_end_gev2", d.grid_end_gev2, _real, POSITIVE),
+        cutoff_gev2=_take(t, p, "cutoff_gev2", d.cutoff_gev2, _real, CUTOFF),
+        regulator_gev2=_take(t, p, "regulator_gev2", d.regulator_gev2, _real, REGULATOR),
+        grid_end_gev2=_take(t, p, "grid_end_gev2", d.grid_end_gev2, _real, GRID_END),
     )
 
 
@@ -413,6 +434,12 @@ def _flavours(top: dict) -> tuple[FlavourConfig, ...]:
     return tuple(out)
 
 
+def meson_label(index: int, name: str | None = None) -> str:
+    """How messages name a meson: ``mesons["pion"]`` once its name is known, else its
+    position counted from 1 (``mesons[1]`` is the first [[mesons]] table)."""
+    return f'mesons["{name}"]' if name is not None else f"mesons[{index + 1}]"
+
+
 def _mesons(top: dict, flavours: tuple[FlavourConfig, ...]) -> tuple[MesonConfig, ...]:
     ms = top.get("mesons", [])
     if not isinstance(ms, (list, tuple)):
@@ -420,18 +447,19 @@ def _mesons(top: dict, flavours: tuple[FlavourConfig, ...]) -> tuple[MesonConfig
     names = tuple(f.name for f in flavours)
     out, seen = [], set()
     for i, m in enumerate(ms):
-        p = f"mesons[{i}]"
+        p = meson_label(i)
         m = _table(m, p, MESON_KEYS)
         name = _take(m, p, "name", MISSING, _pattern, NAME_RE)
         if name in seen:
             raise ConfigError(f"{p}.name", name, "a name not used by an earlier meson")
         seen.add(name)
+        p = meson_label(i, name)
         out.append(MesonConfig(
             name=name,
             channel=_take(m, p, "channel", MISSING, _choice, channels.registered()),
             quarks=_take(m, p, "quarks", (names[0], names[0]), _quark_pair, names),
             eta=_take(m, p, "eta", MesonConfig.eta, _real, ETA),
-            mass_guess_gev=_take(m, p, "mass_guess_gev", None, _real, POSITIVE),
+            mass_guess_gev=_take(m, p, "mass_guess_gev", None, _real, GUESS),
         ))
     return tuple(out)
 
@@ -439,7 +467,7 @@ def _mesons(top: dict, flavours: tuple[FlavourConfig, ...]) -> tuple[MesonConfig
 def _gap(t: dict) -> GapNumerics:
     p, d = "numerics.gap", GapNumerics
     return GapNumerics(
-        q2_min_gev2=_take(t, p, "q2_min_gev2", d.q2_min_gev2, _real, POSITIVE),
+        q2_min_gev2=_take(t, p, "q2_min_gev2", d.q2_min_gev2, _real, GAP_Q2_MIN),
         panel_widths=_take(t, p, "panel_widths", d.panel_widths, _widths),
         order=_take(t, p, "order", d.order, _integer, 4, 24),
         angular_points=_take(t, p, "angular_points", d.angular_points, _integer, 8, 400),
@@ -462,7 +490,7 @@ def _output(t: dict) -> OutputConfig:
     p, d = "output", OutputConfig
     return OutputConfig(
         decay_constant_convention=_take(t, p, "decay_constant_convention", d.decay_constant_convention,
-                                        _choice, DECAY_CONVENTIONS),
+                                        _convention),
         cache_dir=_take(t, p, "cache_dir", None, _path),
         error_bar=_take(t, p, "error_bar", d.error_bar, _boolean),
     )
@@ -489,7 +517,7 @@ def _cross_checks(c: Config) -> None:
     if c.bse.continuation == "shifted":
         for i, m in enumerate(c.mesons):
             if m.quarks[0] != m.quarks[1]:
-                raise ConfigError(f"mesons[{i}].quarks", list(m.quarks),
+                raise ConfigError(f"{meson_label(i, m.name)}.quarks", list(m.quarks),
                                   "two equal flavours with numerics.bse.continuation = 'shifted' "
                                   "(use 'direct' for unequal ones)")
 
@@ -534,11 +562,67 @@ def parse(text: str, source: str | None = None) -> Config:
 
 
 def load(path) -> Config:
-    """A validated Config from a TOML file."""
+    """A validated Config from a TOML file (a UTF-8 byte-order mark is allowed).
+
+    A relative ``[output] cache_dir`` is taken relative to the file's directory."""
     try:
-        text = Path(path).read_text(encoding="utf-8")
+        text = Path(path).read_text(encoding="utf-8-sig")
     except UnicodeDecodeError:
         raise ConfigError("<file>", str(path), "a UTF-8 text file") from None
     except OSError as e:
         raise ConfigError("<file>", str(path), f"a readable TOML file ({e.strerror or type(e).__name__})") from None
-    return parse(text, str(path))
+    cfg = parse(text, str(path))
+    cache = cfg.output.cache_dir
+    if cache is not None:
+        where = Path(cache).expanduser()
+        if not where.is_absolute():
+            where = Path(path).resolve().parent / where
+        cfg = dataclasses.replace(cfg, output=dataclasses.replace(cfg.output, cache_dir=str(where)))
+    return cfg
+
+
+# ----------------------------------------------------------------------------------------
+# What a run echoes, and plausibility warnings (not errors)
+
+#: A current mass above this at ζ is legal but unusual for the light and strange quarks
+#: the rainbow-ladder models are tuned to (the charm mass at 2 GeV is about 1.1 GeV, PDG).
+HEAVY_CURRENT_MASS_GEV = 1.0
+
+
+def describe(cfg: Config) -> list[str]:
+    """The resolved interaction, regularisation and quark masses, a few short lines."""
+    i = cfg.interaction
+    given = set(i.given)
+    params = ", ".join(f"{k} = {v:g}" + ("" if k in given or ":" in i.model else " (default)")
+                       for k, v in i.params) or "no parameters"
+    k = cfg.kernel
+    reg = (f"hard cutoff {k.cutoff_gev2:g} GeV^2" if k.regularisation == kernel.HARD_CUTOFF else
+           f"translation-invariant, regulator {k.regulator_gev2:g} GeV^2")
+    quarks = ", ".join(f"{f.name} = {1e3 * f.current_mass_gev:g} MeV" for f in cfg.flavours)
+    return [f"interaction {i.model}: {params}",
+            f"kernel: {reg}, Z2^2 {'on' if k.z2_squared else 'off'}; zeta = {cfg.renormalisation_point_gev:g} GeV",
+            f"current masses at zeta: {quarks}"]
+
+
+def plausibility_warnings(cfg: Config) -> list[str]:
+    """Legal but suspicious settings, one line each, naming the key."""
+    out = []
+    for f in cfg.flavours:
+        if f.current_mass_gev > HEAVY_CURRENT_MASS_GEV:
+            out.append(f"quarks.{f.name}.current_mass_gev = {f.current_mass_gev:g} GeV at zeta = "
+                       f"{cfg.renormalisation_point_gev:g} GeV is above {HEAVY_CURRENT_MASS_GEV:g} GeV "
+                       "(heavier than charm; is it in GeV, not MeV?)")
+    model = cfg.interaction.model
+    if model in interactions.registered():
+        params = interactions.get(model).parameters
+        given = set(cfg.interaction.given)
+        for group in sorted({p.group for p in params.values() if p.group}):
+            members = [k for k, p in params.items() if p.group == group]
+            set_ = [k for k in members if k in given]
+            if set_:
+                for k in members:
+                    if k not in given:
+                        out.append(f"interaction.{k} is left at its default {params[k].default:g} while "
+                                   f"{', '.join('interaction.' + s for s in set_)} is set "
+                                   f"({params[k].meaning}; both belong to the {group} form of {model})")
+    return out

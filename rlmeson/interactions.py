@@ -59,6 +59,7 @@ class Parameter:
     maximum: float | None = None
     strict_minimum: bool = False  # True: value must be > minimum (not >=)
     meaning: str = ""
+    group: str = ""  # parameters set together (a config setting one but not another is warned about)
 
     def allowed(self) -> str:
         lo = "" if self.minimum is None else (f"> {self.minimum:g}" if self.strict_minimum else f">= {self.minimum:g}")
@@ -169,8 +170,10 @@ def _free(s, p):
 _UV = {
     "gluon_mass_scale_gev": Parameter(0.5, 0.0, None, True, "m_t in ℱ(s)"),
     "tau": Parameter(math.e**2 - 1.0, 0.0, None, True, "τ in the UV logarithm"),
-    "lambda_qcd_gev": Parameter(0.234, 0.0, None, True, "Λ_QCD in the UV logarithm"),
-    "flavours": Parameter(4.0, 0.0, 16.0, False, "N_f in γ_m = 12/(33 − 2N_f)"),
+    # Λ_QCD is a few hundred MeV (common practice); above 1 GeV the one-loop evolution of
+    # the condensate to 1 GeV is meaningless, so the range stops well below.
+    "lambda_qcd_gev": Parameter(0.234, 0.0, 0.6, True, "Λ_QCD in the UV logarithm", "running coupling"),
+    "flavours": Parameter(4.0, 0.0, 16.0, False, "N_f in γ_m = 12/(33 − 2N_f)", "running coupling"),
     "uv_strength": Parameter(1.0, 0.0, None, False, "factor on the perturbative tail (1: as published)"),
 }
 
@@ -178,8 +181,8 @@ MARIS_TANDY = register(Model(
     name="maris-tandy",
     g=_maris_tandy,
     parameters={
-        "omega_gev": Parameter(0.4, 0.0, None, True, "ω, width of the infrared Gaussian"),
-        "strength_gev2": Parameter(0.933, 0.0, None, False, "D, infrared strength"),
+        "omega_gev": Parameter(0.4, 0.0, None, True, "ω, width of the infrared Gaussian", "infrared"),
+        "strength_gev2": Parameter(0.933, 0.0, None, False, "D, infrared strength", "infrared"),
         **_UV,
     },
     summary="(4π²/ω⁶) D s e^{−s/ω²} + UV tail (Maris–Tandy, 1999)",
@@ -189,8 +192,8 @@ QIN_CHANG = register(Model(
     name="qin-chang",
     g=_qin_chang,
     parameters={
-        "omega_gev": Parameter(0.5, 0.0, None, True, "ω, width of the infrared Gaussian"),
-        "strength_gev2": Parameter(0.8**3 / 0.5, 0.0, None, False, "D; ωD = (0.8 GeV)³ by default"),
+        "omega_gev": Parameter(0.5, 0.0, None, True, "ω, width of the infrared Gaussian", "infrared"),
+        "strength_gev2": Parameter(0.8**3 / 0.5, 0.0, None, False, "D; ωD = (0.8 GeV)³ by default", "infrared"),
         **_UV,
     },
     summary="(8π²/ω⁴) D e^{−s/ω²} + UV tail (Qin–Chang, 2011)",
@@ -202,6 +205,52 @@ FREE = register(Model(
     parameters={},
     summary="no interaction: A = 1, B = m (a test of the machinery)",
 ))
+
+
+# ----------------------------------------------------------------------------------------
+# A user interaction is tried once before anything is solved
+
+#: Probe points (GeV²): infrared, near the Maris–Tandy peak, ultraviolet, and the complex
+#: momenta of the continuation (Schwarz pairs) -- real and complex arrays, 1-D and 2-D.
+PROBE_S = (1e-4, 0.3, 2.0, 1e3, 0.2 + 0.3j, 0.2 - 0.3j, -0.1 + 0.05j, 1.0 + 1.0j)
+
+
+def probe(name: str, params: Mapping[str, float]) -> None:
+    """Evaluate g once on real and complex s, plain and under ``jax.jit``: the result
+    must be finite and have the shape of s.  A failure raises ``ConfigError`` naming
+    ``interaction.model`` (one line)."""
+    import numpy as np
+
+    from ._jax import jax, jnp as real_jnp
+    from .config import ConfigError
+
+    def fail(what: str):
+        raise ConfigError("interaction.model", name, f"a function g(s, params) of jax.numpy that {what}")
+
+    fn = get(name).g
+    jp = {k: real_jnp.asarray(float(v)) for k, v in params.items()}
+    s_complex = np.asarray(PROBE_S, dtype=complex).reshape(2, 4)
+    s_real = np.asarray([s.real for s in PROBE_S[:4]]) + 0.0
+    for s in (s_real, s_complex):
+        for how, call in (("plain", lambda x: fn(real_jnp.asarray(x), jp)),
+                          ("jax.jit", jax.jit(lambda x: fn(x, jp)))):
+            try:
+                val = call(s)
+            except Exception as e:  # noqa: BLE001  (whatever it raised: name the key)
+                msg = " ".join(str(e).split())[:160]
+                where = "complex" if s.dtype.kind == "c" else "real"
+                fail(f"can be traced and compiled (with {how} on {where} s it raised {type(e).__name__}: {msg})")
+            if val is None:
+                fail("returns an array (it returned None)")
+            try:
+                arr = np.asarray(val)
+            except Exception:  # noqa: BLE001
+                fail(f"returns an array (it returned {type(val).__name__})")
+            if arr.shape != s.shape:
+                fail(f"returns an array of the shape of s (s of shape {s.shape} gave {arr.shape})")
+            if arr.dtype.kind not in "fcib" or not np.all(np.isfinite(arr)):
+                fail(f"is finite for the probe momenta s = {', '.join(map(str, PROBE_S))} GeV^2 "
+                     f"(it gave {arr.ravel()[:4].tolist()}...)")
 
 
 def evaluate(name: str, params: Mapping[str, float], s):

@@ -10,6 +10,7 @@ derived from the physics inputs.  The CLI, fits and scans call ``solve_quark``,
 
 from __future__ import annotations
 
+import functools
 import math
 import time
 from dataclasses import dataclass, field
@@ -19,7 +20,7 @@ import numpy as np
 
 from . import __version__
 from . import bse, channels, gap, observables, search, singularities
-from .config import Config, ConfigError, MesonConfig
+from .config import Config, ConfigError, MesonConfig, meson_label
 from .kernel import Kernel
 from .store import Store
 
@@ -54,21 +55,47 @@ def bse_grid_of(cfg: Config) -> bse.BSEGrid:
                        n_z=b.z_points, angular_half=b.angular_points)
 
 
-def _code_tag(cfg: Config) -> str:
-    """What besides the physics inputs decides a cached result: the package version and,
-    for a user interaction ``module:function``, a hash of that function's source."""
+@functools.lru_cache(maxsize=1)
+def package_source_hash() -> str:
+    """sha256 over the names and bytes of the package's own ``.py`` files: an edited
+    checkout gets new cache keys even without a version bump."""
+    import hashlib
+    from pathlib import Path
+
+    digest = hashlib.sha256()
+    for f in sorted(Path(__file__).resolve().parent.glob("*.py")):
+        digest.update(f.name.encode() + b"\0" + f.read_bytes() + b"\0")
+    return digest.hexdigest()[:16]
+
+
+def user_module_hash(model: str) -> str:
+    """sha256 of the whole source file of a user interaction's module (constants and
+    helpers included); modules it imports and data files it reads are not tracked."""
     import hashlib
     import inspect
+    import sys
 
     from . import interactions
 
-    tag = __version__
-    if ":" in cfg.interaction.model:
+    fn = interactions.get(model).g
+    module = sys.modules.get(getattr(fn, "__module__", None) or "")
+    try:
+        src = inspect.getsource(module) if module is not None else inspect.getsource(fn)
+    except (OSError, TypeError):
         try:
-            src = inspect.getsource(interactions.get(cfg.interaction.model).g)
+            src = inspect.getsource(fn)
         except (OSError, TypeError):
-            src = repr(interactions.get(cfg.interaction.model).g)
-        tag += ":" + hashlib.sha256(src.encode()).hexdigest()[:12]
+            src = repr(fn)
+    return hashlib.sha256(src.encode()).hexdigest()[:16]
+
+
+def _code_tag(cfg: Config) -> str:
+    """What besides the physics inputs decides a cached result: the package version, a
+    hash of the package's source files and, for a user interaction ``module:function``,
+    a hash of that function's whole module."""
+    tag = f"{__version__}:{package_source_hash()}"
+    if ":" in cfg.interaction.model:
+        tag += ":" + user_module_hash(cfg.interaction.model)
     return tag
 
 
@@ -213,7 +240,7 @@ def solve_quark(cfg: Config, flavour: str, store: Store | None = None,
                  "singularity_check": check,
                  "condensate_cbrt_gev": cond, "regularisation": kern.label, "version": __version__,
                  "config_key": key, "grid": {"points": int(sol.radial.size), "edges": list(sol.radial.edges)}}
-        store.put("quark", key, _quark_arrays(sol), attrs)
+        store.try_put("quark", key, _quark_arrays(sol), attrs)
     return res
 
 
@@ -263,6 +290,17 @@ def _guess(channel: str, quark: QuarkResult, m_max: float) -> float:
     return min(0.9 * m_max, 2.0 * quark.mass_function_at_zero_gev * 0.8)
 
 
+def check_mass_guess(cfg: Config, meson: MesonConfig, quarks: dict[str, QuarkResult]) -> None:
+    """``mass_guess_gev`` must lie below the search limit of its quarks (a ConfigError
+    naming the key otherwise); checked before the meson stage looks in the store."""
+    m_max = min(quarks[q].search_limit_gev for q in meson.quarks)
+    if meson.mass_guess_gev is not None and meson.mass_guess_gev >= m_max:
+        i = cfg.mesons.index(meson) if meson in cfg.mesons else 0
+        raise ConfigError(f"{meson_label(i, meson.name)}.mass_guess_gev", meson.mass_guess_gev,
+                          f"below M_max = {m_max:.6g} GeV, the largest mass whose quark-momentum "
+                          "parabola stays clear of the propagator's singularities")
+
+
 def bound_state(cfg: Config, meson: MesonConfig, quarks: dict[str, QuarkResult],
                 grid: bse.BSEGrid, progress: Progress = _quiet) -> BoundStateCore:
     """Mass, normalised amplitude and observables of one meson on one grid."""
@@ -283,11 +321,7 @@ def bound_state(cfg: Config, meson: MesonConfig, quarks: dict[str, QuarkResult],
         mass, vec, curve, evals = 0.0, lead.vec, lead.curve, len(lead.curve.masses)
         m_eval = observables.CHIRAL_PROBES_GEV[0]
     else:
-        if meson.mass_guess_gev is not None and meson.mass_guess_gev >= m_max:
-            i = cfg.mesons.index(meson) if meson in cfg.mesons else 0
-            raise ConfigError(f"mesons[{i}].mass_guess_gev", meson.mass_guess_gev,
-                              f"below M_max = {m_max:.6g} GeV, the largest mass whose quark-momentum "
-                              "parabola stays clear of the propagator's singularities")
+        check_mass_guess(cfg, meson, quarks)
         guess = meson.mass_guess_gev or _guess(ch.name, q1, m_max)
         progress(f"{meson.name}: searching lambda(P^2) = 1 below M_max = {m_max:.4g} GeV")
         sol = search.find_mass(bs, guess, m_max)
@@ -424,6 +458,7 @@ def solve_meson(cfg: Config, meson: MesonConfig, quarks: dict[str, QuarkResult],
                 store: Store | None = None, progress: Progress = _quiet) -> MesonResult:
     """One meson on the configured grid, plus (``output.error_bar``) a coarser grid."""
     t0 = time.perf_counter()
+    check_mass_guess(cfg, meson, quarks)  # before the store: a warm cache must not hide it
     key = stage_key(cfg, cfg.meson_key(meson) + ("e" if cfg.output.error_bar else "n"))
     masses = tuple(quarks[q].solution.mass_gev for q in meson.quarks)
     common = dict(name=meson.name, channel=meson.channel, quarks=meson.quarks, key=key,
@@ -450,7 +485,7 @@ def solve_meson(cfg: Config, meson: MesonConfig, quarks: dict[str, QuarkResult],
         _core_to_store("", core, arrays, attrs)
         if coarse is not None:
             _core_to_store("coarse_", coarse, arrays, attrs)
-        store.put("meson", key, arrays, attrs)
+        store.try_put("meson", key, arrays, attrs)
     return res
 
 

@@ -16,18 +16,25 @@ File layout (readable with plain h5py, without this package):
   JSON text (``None`` becomes the string ``"null"``); the names of these attributes are
   listed in the attribute ``json_attrs`` (itself a JSON list), so a plain-h5py reader
   knows which strings to pass through ``json.loads``;
-* bookkeeping attributes: ``format`` = ``"rlmeson-store-1"``, ``created_utc`` (ISO 8601),
-  ``json_attrs`` and ``checksum``.  ``checksum`` is the hex SHA-256 over, for every
-  dataset in sorted name order, its name, dtype (little-endian form), shape and raw
-  bytes (C order, little-endian), followed by the canonical JSON of the caller
-  attributes (sorted keys, no spaces, ASCII only).  These four names cannot be used as
+* bookkeeping attributes: ``format`` = ``"rlmeson-store-2"``, ``created_utc`` (ISO 8601),
+  ``entry`` (``"<kind>/<key>"``, the name the entry was written under), ``json_attrs``
+  and ``checksum``.  ``checksum`` is the hex SHA-256 over, for every dataset in sorted
+  name order, its name, dtype (little-endian form), shape and raw bytes (C order,
+  little-endian), followed by the canonical JSON of the caller attributes (sorted keys,
+  no spaces, ASCII only) and the ``entry`` text.  These five names cannot be used as
   caller attributes.
 
 Every file is written to a temporary name in the same directory, fsynced and renamed
 into place, so a reader sees either the old entry, the new one, or none -- never half
-of one.  On reading, the checksum is recomputed; an entry that cannot be opened, lacks
-the checksum or does not match it (truncated, corrupted, edited) is deleted with a
-:class:`StoreWarning` and reported as absent, so the caller recomputes it.
+of one.  On reading, the checksum is recomputed and ``entry`` compared with the name the
+file sits under; an entry that cannot be opened, lacks the checksum, does not match it
+(truncated, corrupted, edited) or was written under another name (copied, renamed) is
+deleted with a :class:`StoreWarning` and reported as absent, so the caller recomputes it.
+
+Temporary names carry the host and process id (``.<name>.<host>-<pid>-<random>.tmp``);
+a temporary file left by a killed process of this host is removed by the next write
+into the same directory.  ``try_put`` is ``put`` for callers that can go on without the
+cache: if the store cannot be written it warns once and stops trying.
 """
 
 from __future__ import annotations
@@ -42,14 +49,15 @@ import os
 from pathlib import Path
 import re
 import secrets
+import socket
 import warnings
 
 import h5py
 import numpy as np
 
-FORMAT = "rlmeson-store-1"
+FORMAT = "rlmeson-store-2"
 
-_RESERVED_ATTRS = frozenset({"format", "created_utc", "json_attrs", "checksum"})
+_RESERVED_ATTRS = frozenset({"format", "created_utc", "entry", "json_attrs", "checksum"})
 _NAME_RE = re.compile(r"[A-Za-z0-9_-]+")
 _DATASET_RE = re.compile(r"[A-Za-z0-9_][A-Za-z0-9_.-]*")
 _MAX_NAME_LEN = 200
@@ -98,9 +106,48 @@ def _check_name(what: str, name: object) -> str:
 # ----------------------------------------------------------------------------------------
 # Atomic writes
 
+_HOST = re.sub(r"[^A-Za-z0-9_]", "_", socket.gethostname())[:40] or "host"
+_TEMP_RE = re.compile(r"\..*\.(?P<host>[A-Za-z0-9_]+)-(?P<pid>[0-9]+)-[0-9a-f]{16}\.tmp")
+
+
 def _temp_name(final: Path) -> Path:
     stem = final.name[:_MAX_NAME_LEN]  # keep the temporary name within filename limits
-    return final.with_name(f".{stem}.{secrets.token_hex(8)}.tmp")
+    return final.with_name(f".{stem}.{_HOST}-{os.getpid()}-{secrets.token_hex(8)}.tmp")
+
+
+def _alive(pid: int) -> bool:
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    except (PermissionError, OverflowError, OSError):
+        return True  # exists but not ours, or cannot tell: leave it alone
+    return True
+
+
+def remove_stale_temporaries(directory) -> list[Path]:
+    """Remove temporary files and directories left in ``directory`` by killed processes of
+    this host (named by :func:`_temp_name`); returns what was removed."""
+    import shutil
+
+    removed = []
+    try:
+        names = list(Path(directory).iterdir())
+    except OSError:
+        return removed
+    for p in names:
+        m = _TEMP_RE.fullmatch(p.name)
+        if m is None or m["host"] != _HOST or _alive(int(m["pid"])):
+            continue
+        try:
+            if p.is_dir() and not p.is_symlink():
+                shutil.rmtree(p)
+            else:
+                p.unlink()
+            removed.append(p)
+        except OSError:
+            pass
+    return removed
 
 
 def _reserve_temp(final: Path) -> Path:
@@ -272,11 +319,12 @@ def _decode_attr(value):
     raise ValueError(f"unexpected attribute of type {type(value).__name__}")
 
 
-def _checksum(arrays: Mapping[str, np.ndarray], attrs: Mapping[str, object]) -> str:
+def _checksum(arrays: Mapping[str, np.ndarray], attrs: Mapping[str, object], entry: str) -> str:
     digest = hashlib.sha256()
     _hash_arrays(digest, arrays)
     digest.update(b"attrs\0")
     digest.update(_canonical_json(attrs).encode("ascii"))
+    digest.update(b"\0entry\0" + entry.encode("utf-8"))
     return digest.hexdigest()
 
 
@@ -287,7 +335,7 @@ def _write_dataset(h5: h5py.File, name: str, array: np.ndarray) -> None:
     h5.create_dataset(name, data=array)
 
 
-def _write_file(path: Path, arrays: dict[str, np.ndarray], attrs: dict, checksum: str) -> None:
+def _write_file(path: Path, arrays: dict[str, np.ndarray], attrs: dict, entry: str, checksum: str) -> None:
     json_names = sorted(k for k, v in attrs.items() if not _is_plain(v))
     with h5py.File(path, "w") as h5:
         for name in sorted(arrays):
@@ -296,6 +344,7 @@ def _write_file(path: Path, arrays: dict[str, np.ndarray], attrs: dict, checksum
             h5.attrs[name] = _canonical_json(value) if name in json_names else _encode_attr(value)
         h5.attrs["format"] = FORMAT
         h5.attrs["created_utc"] = datetime.now(timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ")
+        h5.attrs["entry"] = entry
         h5.attrs["json_attrs"] = _canonical_json(json_names)
         h5.attrs["checksum"] = checksum
 
@@ -330,17 +379,21 @@ def _read_arrays(h5: h5py.File) -> dict[str, np.ndarray]:
     return arrays
 
 
-def _read_entry(path: Path) -> Entry:
-    """Read and verify an entry; raises on anything unreadable or inconsistent."""
+def _read_entry(path: Path, entry: str) -> Entry:
+    """Read and verify an entry that should be ``entry`` (kind/key); raises on anything
+    unreadable or inconsistent."""
     with h5py.File(path, "r") as h5:
         if h5.attrs.get("format") != FORMAT:
             raise _InvalidEntry(f"format is {h5.attrs.get('format')!r}, not {FORMAT!r}")
         stored = h5.attrs.get("checksum")
         if not isinstance(stored, str):
             raise _InvalidEntry("no checksum attribute")
+        written_as = h5.attrs.get("entry")
+        if written_as != entry:
+            raise _InvalidEntry(f"written as {written_as!r}, found under {entry!r} (copied or renamed)")
         arrays = _read_arrays(h5)
         attrs = _read_attrs(h5)
-    if _checksum(arrays, attrs) != stored:
+    if _checksum(arrays, attrs, entry) != stored:
         raise _InvalidEntry("checksum mismatch")
     return Entry(arrays=arrays, attrs=attrs, path=path)
 
@@ -361,6 +414,7 @@ class Store:
 
     def __init__(self, root=None):
         self.root = Path(root).expanduser() if root is not None else default_root()
+        self.unwritable: str | None = None  # set by try_put after the first failed write
 
     def __repr__(self) -> str:
         return f"Store({str(self.root)!r})"
@@ -375,11 +429,42 @@ class Store:
         final = self.path(kind, key)
         arrays = _prepare_arrays(arrays)
         attrs = _normalize_attrs(attrs)
-        checksum = _checksum(arrays, attrs)
+        entry = f"{kind}/{key}"
+        checksum = _checksum(arrays, attrs, entry)
         final.parent.mkdir(parents=True, exist_ok=True)
+        remove_stale_temporaries(final.parent)
         with atomic_path(final) as tmp:
-            _write_file(tmp, arrays, attrs, checksum)
+            _write_file(tmp, arrays, attrs, entry, checksum)
         return final
+
+    def try_put(self, kind: str, key: str, arrays: Mapping[str, np.ndarray],
+                attrs: Mapping[str, object]) -> Path | None:
+        """``put``, but a store that cannot be written (full disk, permissions, a file
+        where a directory should be) gives one :class:`StoreWarning` and is not tried
+        again by this object; returns None then."""
+        if self.unwritable is not None:
+            return None
+        try:
+            return self.put(kind, key, arrays, attrs)
+        except OSError as e:
+            self.unwritable = f"{e.strerror or type(e).__name__}"
+            warnings.warn(f"cannot write the result cache at {self.root} ({self.unwritable}); "
+                          "going on without caching", StoreWarning, stacklevel=2)
+            return None
+
+    def check_writable(self) -> str | None:
+        """Why the store cannot be written (one phrase), or None if it can: creates the
+        root if needed and a temporary file in it, removed at once."""
+        where = self.root
+        try:
+            if where.exists() and not where.is_dir():
+                return f"{where} exists and is not a directory"
+            where.mkdir(parents=True, exist_ok=True)
+            tmp = _reserve_temp(where / "probe")
+            tmp.unlink()
+        except OSError as e:
+            return f"{where}: {e.strerror or type(e).__name__}"
+        return None
 
     def get(self, kind: str, key: str) -> Entry | None:
         """The verified entry, or None if absent or invalid (an invalid file is deleted)."""
@@ -388,7 +473,7 @@ class Store:
         if identity is None:
             return None
         try:
-            return _read_entry(path)
+            return _read_entry(path, f"{kind}/{key}")
         except Exception as exc:  # noqa: BLE001  (any failure to read means: recompute)
             _discard(path, identity, exc)
             return None

@@ -221,7 +221,7 @@ def test_translation_invariant_valid_and_user_model():
     c = cfg.parse(MINIMAL + '[kernel]\nregularisation = "translation-invariant"\n')
     assert c.kernel.relevant() == {"z2_squared": True, "regularisation": "translation-invariant",
                                    "regulator_gev2": 1e6, "grid_end_gev2": 1e11}
-    u = cfg.parse(MINIMAL + '[interaction]\nmodel = "math:exp"\nwidth = 2\n')
+    u = cfg.parse(MINIMAL + '[interaction]\nmodel = "user_models:gaussian"\nwidth = 2\n')
     assert u.interaction.param_dict() == {"width": 2.0}
 
 
@@ -279,17 +279,25 @@ BAD = [
     ("zeta below grid", [(("renormalisation", "point_gev"), 1e-4)], "renormalisation.point_gev", "0.0001"),
     ("regulator not >> zeta", TI + [(("kernel", "regulator_gev2"), 1000.0)], "kernel.regulator_gev2", "1000.0"),
     ("grid_end too small", TI + [(("kernel", "grid_end_gev2"), 1e9)], "kernel.grid_end_gev2", "1000000000.0"),
-    ("undefined quark", [(("mesons", 0, "quarks"), ["l", "c"])], "mesons[0].quarks[1]", "'c'"),
-    ("duplicate meson", [(("mesons", 1, "name"), "pion")], "mesons[1].name", "'pion'"),
-    ("bad channel", [(("mesons", 0, "channel"), "tensor")], "mesons[0].channel", "'tensor'"),
-    ("eta not 0.5", [(("mesons", 0, "eta"), 0.3)], "mesons[0].eta", "0.3"),
-    ("unequal quarks shifted", [(("mesons", 0, "quarks"), ["l", "s"])], "mesons[0].quarks", "['l', 's']"),
+    ("undefined quark", [(("mesons", 0, "quarks"), ["l", "c"])], 'mesons["pion"].quarks[1]', "'c'"),
+    ("duplicate meson", [(("mesons", 1, "name"), "pion")], "mesons[2].name", "'pion'"),
+    ("bad channel", [(("mesons", 0, "channel"), "tensor")], 'mesons["pion"].channel', "'tensor'"),
+    ("eta not 0.5", [(("mesons", 0, "eta"), 0.3)], 'mesons["pion"].eta', "0.3"),
+    ("unequal quarks shifted", [(("mesons", 0, "quarks"), ["l", "s"])], 'mesons["pion"].quarks', "['l', 's']"),
+    ("meson name missing", [(("mesons", 1, "name"), ...)], "mesons[2].name", "<missing>"),
     ("no flavours", [(("quarks",), {})], "quarks", "{}"),
     ("flavours missing", [(("quarks",), ...)], "quarks", "<missing>"),
     ("bad flavour name", [(("quarks", "1x"), {"current_mass_gev": 0.1})], "quarks.1x", "'1x'"),
     ("missing name", [(("name",), ...)], "name", "<missing>"),
     ("bad name", [(("name",), "has space")], "name", "'has space'"),
-    ("missing meson channel", [(("mesons", 0, "channel"), ...)], "mesons[0].channel", "<missing>"),
+    ("missing meson channel", [(("mesons", 0, "channel"), ...)], 'mesons["pion"].channel', "<missing>"),
+    ("mass guess above 10 GeV", [(("mesons", 0, "mass_guess_gev"), 50.0)], 'mesons["pion"].mass_guess_gev', "50.0"),
+    ("lambda_qcd above its range", [(("interaction", "lambda_qcd_gev"), 3.0)], "interaction.lambda_qcd_gev", "3.0"),
+    ("cutoff beyond 1e12", [(("kernel", "cutoff_gev2"), 1e300)], "kernel.cutoff_gev2", "1e+300"),
+    ("regulator beyond 1e10", TI + [(("kernel", "regulator_gev2"), 1e12)], "kernel.regulator_gev2",
+     "1000000000000.0"),
+    ("grid end beyond 1e16", TI + [(("kernel", "grid_end_gev2"), 1e20)], "kernel.grid_end_gev2", "1e+20"),
+    ("gap q2_min too large", [(("numerics", "gap", "q2_min_gev2"), 0.5)], "numerics.gap.q2_min_gev2", "0.5"),
     ("panel_widths wrong length", [(("numerics", "gap", "panel_widths"), [1.0, 2.0])],
      "numerics.gap.panel_widths", "[1.0, 2.0]"),
     ("panel width too large", [(("numerics", "bse", "panel_widths"), [1.0, 2.0, 11.0, 1.0])],
@@ -297,8 +305,10 @@ BAD = [
     ("bse q2_min too large", [(("numerics", "bse", "q2_min_gev2"), 1.0)], "numerics.bse.q2_min_gev2", "1.0"),
     ("bad continuation", [(("numerics", "bse", "continuation"), "rotated")],
      "numerics.bse.continuation", "'rotated'"),
-    ("bad convention", [(("output", "decay_constant_convention"), 92)],
-     "output.decay_constant_convention", "92"),
+    ("bad convention", [(("output", "decay_constant_convention"), 93)],
+     "output.decay_constant_convention", "93"),
+    ("convention as a float", [(("output", "decay_constant_convention"), 92.0)],
+     "output.decay_constant_convention", "92.0"),
     ("table expected", [(("kernel",), 5)], "kernel", "5"),
     ("mesons not a list", [(("mesons",), {"name": "pion"})], "mesons", "{'name': 'pion'}"),
 ]
@@ -405,3 +415,82 @@ def test_fuzz_parse(text):
 @given(VALUES)
 def test_fuzz_any_value(value):
     _check_outcome(lambda: cfg.from_dict(value))
+
+
+# ----------------------------------------------------------------------------------------
+# Small edges: BOM, conventions written as numbers, cache_dir next to the file
+
+def test_utf8_byte_order_mark_is_accepted(tmp_path):
+    p = tmp_path / "bom.toml"
+    p.write_bytes(b"\xef\xbb\xbf" + MINIMAL.encode())
+    assert cfg.load(p).name == "x"
+
+
+@pytest.mark.parametrize("written, stored", [(92, "92"), ("92", "92"), (131, "131"), ("131", "131")])
+def test_decay_constant_convention_as_number_or_string(written, stored):
+    text = MINIMAL + f"[output]\ndecay_constant_convention = {written!r}\n".replace("'", '"')
+    assert cfg.parse(text).output.decay_constant_convention == stored
+
+
+def test_relative_cache_dir_is_taken_from_the_config_files_directory(tmp_path, monkeypatch):
+    (tmp_path / "sub").mkdir()
+    p = tmp_path / "sub" / "c.toml"
+    p.write_text(MINIMAL + '[output]\ncache_dir = "store"\n')
+    monkeypatch.chdir(tmp_path)
+    assert cfg.load(p).output.cache_dir == str((tmp_path / "sub" / "store").resolve())
+    p.write_text(MINIMAL + f'[output]\ncache_dir = "{tmp_path / "abs"}"\n')
+    assert cfg.load("sub/c.toml").output.cache_dir == str(tmp_path / "abs")
+
+
+def test_reading_a_config_does_not_import_jax():
+    """Parsing first and importing the numerics after keeps a bad config's rejection
+    fast; a fresh interpreter must not have imported jax after config.load."""
+    import subprocess
+    import sys
+
+    code = ("import sys, rlmeson.config as c\n"
+            "c.parse('name = \"x\"\\n[quarks.l]\\ncurrent_mass_gev = 0.005\\n')\n"
+            "print('jax' in sys.modules)")
+    r = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    assert r.stdout.strip() == "False"
+
+
+# ----------------------------------------------------------------------------------------
+# Plausibility: warnings, not errors
+
+def test_heavy_current_mass_warns_naming_the_key():
+    c = cfg.parse('name = "x"\n[quarks.h]\ncurrent_mass_gev = 4\n')
+    w = cfg.plausibility_warnings(c)
+    assert len(w) == 1 and "quarks.h.current_mass_gev" in w[0] and "\n" not in w[0]
+    assert cfg.plausibility_warnings(cfg.parse(MINIMAL)) == []
+
+
+def test_parameter_left_at_default_beside_a_set_one_warns():
+    """Setting ω without D (or Λ_QCD without N_f) keeps a published value of the other
+    that belongs to a different fit; the warning names the key left alone."""
+    c = cfg.parse(MINIMAL + "[interaction]\nomega_gev = 0.5\n")
+    w = cfg.plausibility_warnings(c)
+    assert len(w) == 1 and w[0].startswith("interaction.strength_gev2 is left at its default")
+    both = cfg.parse(MINIMAL + "[interaction]\nomega_gev = 0.5\nstrength_gev2 = 0.8\n")
+    assert cfg.plausibility_warnings(both) == []
+    assert any("interaction.lambda_qcd_gev" in x and "running coupling" in x
+               for x in cfg.plausibility_warnings(cfg.parse(MINIMAL + "[interaction]\nflavours = 3\n")))
+
+
+def test_describe_echoes_model_parameters_and_masses():
+    lines = cfg.describe(cfg.parse(MINIMAL + "[interaction]\nomega_gev = 0.5\nstrength_gev2 = 0.8\n"))
+    text = "\n".join(lines)
+    assert "maris-tandy" in lines[0] and "omega_gev = 0.5" in text and "tau = " in text and "(default)" in text
+    assert "l = 5 MeV" in text
+
+
+# ----------------------------------------------------------------------------------------
+# User interactions are probed once (finite, right shape, traceable with JAX)
+
+@pytest.mark.parametrize("func, says", [("nan_at_zero", "finite"), ("scalar", "shape"),
+                                        ("nothing", "None"), ("plain_numpy", "traced")])
+def test_bad_user_interaction_is_one_line_naming_the_model_key(func, says):
+    with pytest.raises(ConfigError) as e:
+        cfg.parse(MINIMAL + f'[interaction]\nmodel = "user_models:{func}"\nwidth = 1\n')
+    msg = str(e.value)
+    assert e.value.key == "interaction.model" and says in msg and "\n" not in msg

@@ -335,7 +335,7 @@ def test_atomic_path_success(tmp_path):
     target = tmp_path / "out.json"
     with st.atomic_path(target) as tmp:
         assert tmp.parent == tmp_path
-        assert re.fullmatch(r"\.out\.json\.[0-9a-f]+\.tmp", tmp.name)
+        assert re.fullmatch(r"\.out\.json\.[A-Za-z0-9_]+-[0-9]+-[0-9a-f]{16}\.tmp", tmp.name)
         assert not target.exists()
         tmp.write_text("done")
     assert target.read_text() == "done"
@@ -408,7 +408,8 @@ def test_file_is_plain_hdf5(tmp_path):
             assert isinstance(h5[name], h5py.Dataset)
             np.testing.assert_array_equal(h5[name][()], value)
         assert h5["amplitude"].dtype == np.complex128
-        assert h5.attrs["format"] == "rlmeson-store-1"
+        assert h5.attrs["format"] == "rlmeson-store-2"
+        assert h5.attrs["entry"] == "gap/k1"     # the name it was written under
         assert re.fullmatch(r"[0-9a-f]{64}", h5.attrs["checksum"])
         assert re.fullmatch(r"\d{4}-\d\d-\d\dT\d\d:\d\d:\d\dZ", h5.attrs["created_utc"])
         assert h5.attrs["label"] == "pion"
@@ -418,3 +419,47 @@ def test_file_is_plain_hdf5(tmp_path):
         assert h5.attrs["note"] == "null"
         assert json.loads(h5.attrs["params"])["d"][1]["unit"] == "GeV^2"
         assert json.loads(h5.attrs["panels"]) == [0.0, 1.5, 3.0]
+
+
+# ----------------------------------------------------------------------------------------
+# An entry knows its name; leftovers of killed writers; an unwritable store
+
+def test_entry_copied_under_another_key_is_rejected(tmp_path):
+    """A copied (or renamed) entry must not be served for the key it now sits under."""
+    store = Store(tmp_path)
+    src = store.put("quark", "aaa", {"x": np.arange(3.0)}, {"mass": 3.0})
+    dst = store.path("quark", "bbb")
+    dst.write_bytes(src.read_bytes())
+    with pytest.warns(StoreWarning, match="written as 'quark/aaa'"):
+        assert store.get("quark", "bbb") is None
+    assert not dst.exists() and store.get("quark", "aaa") is not None
+
+
+def test_temporaries_of_a_killed_writer_are_removed_by_the_next_write(tmp_path):
+    """A process killed while writing leaves its temporary file; the next write into the
+    directory removes it (its pid is dead), and never one of a live process."""
+    import subprocess
+    import sys
+
+    store = Store(tmp_path)
+    store.put("gap", "k0", {"x": np.zeros(2)}, {})
+    dead = subprocess.run([sys.executable, "-c", "import os; print(os.getpid())"],
+                          capture_output=True, text=True, check=True)
+    pid = int(dead.stdout)
+    stale = tmp_path / "gap" / f".k1.h5.{st._HOST}-{pid}-{'0' * 16}.tmp"
+    live = tmp_path / "gap" / f".k2.h5.{st._HOST}-{os.getpid()}-{'1' * 16}.tmp"
+    stale.write_bytes(b"half")
+    live.write_bytes(b"busy")
+    store.put("gap", "k3", {"x": np.ones(2)}, {})
+    assert not stale.exists() and live.exists()
+
+
+def test_unwritable_store_warns_once_and_goes_on(tmp_path):
+    (tmp_path / "file").write_text("not a directory")
+    store = Store(tmp_path / "file" / "store")
+    assert "file" in store.check_writable()
+    with pytest.warns(StoreWarning) as rec:
+        assert store.try_put("gap", "k", {"x": np.zeros(1)}, {}) is None
+        assert store.try_put("gap", "k2", {"x": np.zeros(1)}, {}) is None
+    assert len(rec) == 1 and "going on without caching" in str(rec[0].message)
+    assert Store(tmp_path / "ok").check_writable() is None and not leftover_temps(tmp_path / "ok")
