@@ -13,9 +13,14 @@ from __future__ import annotations
 import argparse
 import json
 import os
+import shutil
+import signal
 import sys
 import time
+import warnings
 from pathlib import Path
+
+from . import __version__
 
 EXIT_OK, EXIT_FAILED, EXIT_BAD_INPUT = 0, 1, 2
 
@@ -31,6 +36,7 @@ class _Parser(argparse.ArgumentParser):
 
 def _parser() -> argparse.ArgumentParser:
     p = _Parser(prog="rlmeson", description="Mesons in rainbow-ladder truncation.")
+    p.add_argument("--version", action="version", version=f"rlmeson {__version__}")
     sub = p.add_subparsers(dest="command", required=True, parser_class=_Parser)
     q = sub.add_parser("quark", help="solve the gap equation and summarise the dressed quark")
     q.add_argument("config")
@@ -61,11 +67,18 @@ def _fmt(x, spec=".6g"):
 
 
 def cmd_quark(args) -> int:
-    from . import config, pipeline, plots
+    from . import config
 
     cfg = config.load(args.config)
-    flavour = args.flavour or cfg.flavours[0].name
-    cfg.flavour(flavour)
+    flavour = cfg.flavours[0].name if args.flavour is None else args.flavour
+    if flavour not in {f.name for f in cfg.flavours}:
+        raise UsageError(f"--flavour {flavour!r}: not a flavour of {args.config}; one of "
+                         + ", ".join(f.name for f in cfg.flavours))
+    if args.plot:
+        _check_file_destination("--plot", Path(args.plot))
+    _echo(cfg, config, quiet=False)
+    _check_store(cfg, args.no_cache)
+    from . import pipeline, plots  # the numerics (JAX) only after the input is checked
     store = pipeline.store_of(cfg, not args.no_cache)
     say = _progress(args.json)
     res = pipeline.solve_quark(cfg, flavour, store, say)
@@ -106,18 +119,21 @@ def _default_out(cfg) -> Path:
 
 
 def cmd_run(args) -> int:
-    from . import config, export, pipeline, plots
-    from .channels import get as channel
-    from .store import atomic_write_text
+    from . import config
 
     cfg = config.load(args.config)
-    out = Path(args.out) if args.out else _default_out(cfg)
+    final = Path(args.out) if args.out else _default_out(cfg)
+    out = _stage(final, "--out" if args.out else "the default output directory")  # checked before any work
+    _echo(cfg, config, args.quiet)
+    _check_store(cfg, args.no_cache)
+    from . import export, pipeline, plots  # the numerics (JAX) only after the input is checked
+    from .channels import get as channel
+    from .store import atomic_write_text
     store = pipeline.store_of(cfg, not args.no_cache)
     say = _progress(args.quiet)
     result = pipeline.run(cfg, store, say)
-    out.mkdir(parents=True, exist_ok=True)
     summ = result.summary()
-    say(f"writing {out}/")
+    say(f"writing {final}/")
     export.write_results_h5(result, out / "results.h5")
     figs = {"mass_function": "mass_function.png"}
     plots.mass_function(result.quarks, out / "mass_function.png")
@@ -131,8 +147,9 @@ def cmd_run(args) -> int:
         figs[m.name] = [f"eigenvalues_{m.name}.png", f"amplitudes_{m.name}.png"]
     summ["figures"] = figs
     atomic_write_text(out / "summary.json", json.dumps(summ, indent=2, allow_nan=False) + "\n")
+    _move_into_place(out, final)
     print(_table(result))
-    print(f"\noutputs in {out}/ (summary.json, results.h5, figures, netCDF and CSV exports)")
+    print(f"\noutputs in {final}/ (summary.json, results.h5, figures, netCDF and CSV exports)")
     return EXIT_OK
 
 
@@ -153,11 +170,156 @@ def _table(result) -> str:
     return "\n".join(rows)
 
 
+# ----------------------------------------------------------------------------------------
+# Before the work: echo, plausibility, destinations
+
+def _echo(cfg, config, quiet: bool) -> None:
+    """The resolved inputs (unless quiet) and the plausibility warnings (always)."""
+    if not quiet:
+        for line in config.describe(cfg):
+            print(f"rlmeson: {line}", file=sys.stderr)
+    for w in config.plausibility_warnings(cfg):
+        print(f"rlmeson: warning: {w}", file=sys.stderr)
+    sys.stderr.flush()
+
+
+def _check_store(cfg, no_cache: bool) -> None:
+    """The result cache must be usable before anything is computed (exit 2 otherwise)."""
+    if no_cache:
+        return
+    from .store import Store
+
+    store = Store(cfg.output.cache_dir) if cfg.output.cache_dir else Store()
+    why = store.check_writable()
+    if why is not None:
+        source = ("[output] cache_dir" if cfg.output.cache_dir else
+                  "$RLMESON_CACHE" if os.environ.get("RLMESON_CACHE") else "the default cache location")
+        raise UsageError(f"result cache ({source}) unusable: {why}; choose another or run with --no-cache")
+
+
+def _nearest_existing(path: Path) -> Path:
+    p = path.absolute()
+    while not p.exists() and p != p.parent:
+        p = p.parent
+    return p
+
+
+def _check_file_destination(option: str, path: Path) -> None:
+    """A file to be written later: not a directory, in a directory that can be written."""
+    if path.is_dir():
+        raise UsageError(f"{option} {path}: is a directory, not a file name")
+    parent = _nearest_existing(path.parent)
+    if not parent.is_dir():
+        raise UsageError(f"{option} {path}: {parent} is not a directory")
+    if not os.access(parent, os.W_OK | os.X_OK):
+        raise UsageError(f"{option} {path}: {parent} cannot be written")
+
+
+_STAGED: list[Path] = []   # fresh run directories not yet moved into place (removed on failure)
+
+
+def _is_run_directory(d: Path) -> bool:
+    try:
+        return json.loads((d / "summary.json").read_text(encoding="utf-8")).get("package") == "rlmeson"
+    except (OSError, ValueError, AttributeError):
+        return False
+
+
+def _stage(final: Path, option: str) -> Path:
+    """Check the output directory and create the fresh one the run is written into.
+
+    ``final`` may be absent, an empty directory or an earlier run (a summary.json written
+    by rlmeson), which is then replaced as a whole; anything else is refused before any
+    work, as is a place that cannot be written.  The fresh directory sits beside
+    ``final`` under a temporary name; leftovers of killed runs there are removed."""
+    from . import store
+
+    if final.is_symlink() or final.exists():
+        if not final.is_dir():
+            raise UsageError(f"{option} {final}: exists and is not a directory")
+        try:
+            occupied = any(final.iterdir())
+        except OSError as e:
+            raise UsageError(f"{option} {final}: cannot be read ({e.strerror or type(e).__name__})") from None
+        if occupied and not _is_run_directory(final):
+            raise UsageError(f"{option} {final}: a non-empty directory that is not an rlmeson run "
+                             "(no summary.json of rlmeson in it); choose a new or empty directory")
+    parent = final.absolute().parent
+    base = _nearest_existing(parent)
+    if not base.is_dir():
+        raise UsageError(f"{option} {final}: {base} is not a directory")
+    try:
+        parent.mkdir(parents=True, exist_ok=True)
+        store.remove_stale_temporaries(parent)
+        staged = store.temporary_directory(final)
+    except OSError as e:
+        raise UsageError(f"{option} {final}: cannot write there ({e.strerror or type(e).__name__})") from None
+    _STAGED.append(staged)
+    return staged
+
+
+def _move_into_place(staged: Path, final: Path) -> None:
+    """Replace ``final`` (absent, empty or an earlier run) by the finished run."""
+    from . import store
+
+    old = None
+    if final.exists():
+        old = store.temporary_directory(final, create=False)
+        os.rename(final, old)
+    try:
+        os.rename(staged, final)
+    except OSError:
+        if old is not None:
+            os.rename(old, final)
+        raise
+    _STAGED.remove(staged)
+    if old is not None:
+        shutil.rmtree(old, ignore_errors=True)
+
+
+def _discard_staged() -> None:
+    while _STAGED:
+        shutil.rmtree(_STAGED.pop(), ignore_errors=True)
+
+
+def _one_line_warning(message, category, filename, lineno, file=None, line=None):
+    text = " ".join(str(message).split())
+    print(f"rlmeson: warning: {text}", file=file or sys.stderr, flush=True)
+
+
+def _terminate(signum, frame):
+    raise KeyboardInterrupt
+
+
 def main(argv=None) -> int:
+    """The command line (``rlmeson`` and ``python3 -m rlmeson``): parse, run, one-line
+    errors and warnings, exit code; temporary output of an interrupted run is removed."""
+    # like ``python3 -m rlmeson``, find a user interaction module in the working directory
+    if "" not in sys.path and os.getcwd() not in sys.path:
+        sys.path.append(os.getcwd())
+    previous = None
+    try:
+        previous = signal.signal(signal.SIGTERM, _terminate)
+    except ValueError:  # not the main thread
+        pass
+    try:
+        with warnings.catch_warnings():
+            warnings.showwarning = _one_line_warning
+            return _main(argv)
+    finally:
+        _discard_staged()
+        if previous is not None:
+            signal.signal(signal.SIGTERM, previous)
+
+
+def _main(argv) -> int:
     from .config import ConfigError
 
     try:
-        args = _parser().parse_args(argv)
+        try:
+            args = _parser().parse_args(argv)
+        except SystemExit as e:  # --help, --version
+            return EXIT_OK if not e.code else EXIT_BAD_INPUT
         return {"quark": cmd_quark, "run": cmd_run}[args.command](args)
     except (ConfigError, UsageError) as e:
         print(f"rlmeson: {e}", file=sys.stderr)

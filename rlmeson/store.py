@@ -115,6 +115,23 @@ def _temp_name(final: Path) -> Path:
     return final.with_name(f".{stem}.{_HOST}-{os.getpid()}-{secrets.token_hex(8)}.tmp")
 
 
+def temporary_directory(final, create: bool = True) -> Path:
+    """A fresh temporary name beside ``final`` (same naming as temporary files, so that
+    :func:`remove_stale_temporaries` clears it after a killed process); created empty
+    unless ``create`` is False."""
+    while True:
+        tmp = _temp_name(Path(final))
+        if not create:
+            if not tmp.exists():
+                return tmp
+            continue
+        try:
+            tmp.mkdir()
+        except FileExistsError:
+            continue
+        return tmp
+
+
 def _alive(pid: int) -> bool:
     try:
         os.kill(pid, 0)

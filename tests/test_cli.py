@@ -66,10 +66,10 @@ BAD = [
     ('name = "x"\n[kernel]\nregularisation = "hard-cutoff"\n[renormalisation]\npoint_gev = 400.0\n[quarks.l]\ncurrent_mass_gev = 0.0\n',
      "renormalisation.point_gev"),
     ('name = "x"\n[kernel]\nregularisation = "lattice"\n[quarks.l]\ncurrent_mass_gev = 0.0\n', "kernel.regularisation"),
-    ('name = "x"\n[quarks.l]\ncurrent_mass_gev = 0.0\n[[mesons]]\nname = "p"\nchannel = "tensor"\n', "mesons[0].channel"),
+    ('name = "x"\n[quarks.l]\ncurrent_mass_gev = 0.0\n[[mesons]]\nname = "p"\nchannel = "tensor"\n', 'mesons["p"].channel'),
     ('name = "x"\n[interaction]\nmodel = "nosuch"\n[quarks.l]\ncurrent_mass_gev = 0.0\n', "interaction.model"),
     ('name = "x"\n[quarks.l]\ncurrent_mass_gev = 0.0\n[[mesons]]\nname = "p"\nchannel = "vector"\nquarks = ["l", "s"]\n',
-     "mesons[0].quarks"),
+     'mesons["p"].quarks'),
     ('name = "x"\n[quarks.l\n', "c.toml"),
 ]
 
@@ -143,7 +143,7 @@ def test_run_writes_outputs_and_summary(tmp_path, capsys, monkeypatch):
 def test_no_bound_state_below_m_max_is_a_one_line_failure(tmp_path, capsys, monkeypatch):
     """A weak interaction binds nothing: the search reports the largest λ and M_max."""
     monkeypatch.setenv("RLMESON_CACHE", str(tmp_path / "cache"))
-    text = ('name = "weak"\n[kernel]\nregularisation = "hard-cutoff"\n[interaction]\nstrength_gev2 = 0.05\n'
+    text = ('name = "weak"\n[kernel]\nregularisation = "hard-cutoff"\n[interaction]\nomega_gev = 0.4\nstrength_gev2 = 0.05\n'
             'uv_strength = 0.2\n[quarks.l]\ncurrent_mass_gev = 0.2\n[[mesons]]\nname = "v"\nchannel = "vector"\n'
             '[output]\nerror_bar = false\n')
     code, out, err = _run(["run", _write(tmp_path, text), "--out", tmp_path / "o", "--quiet"], capsys)
