@@ -1,7 +1,8 @@
 """Command line: argument parsing, progress, exit codes.  No numerics here.
 
-    rlmeson quark CONFIG [--flavour NAME] [--json] [--plot FILE.png] [--no-cache]
+    rlmeson quark CONFIG [--flavour NAME] [--json] [--plot FILE.png|.pdf|.svg] [--no-cache]
     rlmeson run CONFIG [--out DIR] [--no-cache] [--quiet]
+    rlmeson plot DIR [DIR ...] [--out DIR] [--format png|pdf|svg] [--uncut]
 
 Exit codes: 0 success, 2 bad input (one line naming the key, the value and what is
 allowed), 1 a computation that could not be completed (one line saying why).
@@ -42,13 +43,19 @@ def _parser() -> argparse.ArgumentParser:
     q.add_argument("config")
     q.add_argument("--flavour", help="flavour to solve (default: the first in the config)")
     q.add_argument("--json", action="store_true", help="print one JSON object on stdout")
-    q.add_argument("--plot", metavar="FILE.png", help="draw M(p²) and Z(p²)")
+    q.add_argument("--plot", metavar="FILE", help="draw M(p²) and Z(p²) (format from the suffix: .png, .pdf, .svg)")
     q.add_argument("--no-cache", action="store_true", help="neither read nor write the result cache")
     r = sub.add_parser("run", help="solve the quarks and every meson of the config, write outputs")
     r.add_argument("config")
     r.add_argument("--out", metavar="DIR", help="output directory (default runs/<name>-<hash>)")
     r.add_argument("--no-cache", action="store_true")
     r.add_argument("--quiet", action="store_true", help="no progress lines")
+    g = sub.add_parser("plot", help="redraw the figures of runs from their results.h5 (overlaid if several)")
+    g.add_argument("dirs", nargs="+", metavar="DIR", help="run directories written by 'rlmeson run'")
+    g.add_argument("--out", metavar="DIR", help="where to write the figures (default: the run directory; "
+                                                "needed for several runs)")
+    g.add_argument("--format", default="png", help="png, pdf or svg (default png)")
+    g.add_argument("--uncut", action="store_true", help="keep values above the regulator scale in M(p²)")
     return p
 
 
@@ -79,12 +86,17 @@ def cmd_quark(args) -> int:
     _echo(cfg, config, quiet=False)
     _check_store(cfg, args.no_cache)
     from . import pipeline, plots  # the numerics (JAX) only after the input is checked
+    if args.plot:
+        _figure_format(plots, args.plot)   # before solving: a bad suffix is a usage error
     store = pipeline.store_of(cfg, not args.no_cache)
     say = _progress(args.json)
     res = pipeline.solve_quark(cfg, flavour, store, say)
     summ = res.summary()
     if args.plot:
-        plots.mass_function({flavour: res}, args.plot)
+        inter = summ["inputs"]["interaction"]
+        title = (f"dressed quark '{flavour}' of {cfg.name} — {plots.model_text(inter['model'], inter['parameters'])}; "
+                 f"{res.solution.kernel.label}")
+        plots.mass_function([plots.quark_data(res)], title, args.plot)
         summ["plot"] = str(args.plot)
     if args.json:
         print(json.dumps(summ, allow_nan=False))
@@ -96,15 +108,17 @@ def cmd_quark(args) -> int:
         f"  Z2 = {s.z2:.8f}   Zm = {s.zm:.8f}   Z4 = {s.z4:.8f}",
         f"  M(0) = {res.mass_function_at_zero_gev:.6f} GeV",
     ]
-    if res.condensate_cbrt_gev:
-        c = res.condensate_cbrt_gev
-        lines.append(f"  (-<qq>)^(1/3) = {c['zeta']:.5f} GeV at zeta, {c['1']:.5f} at 1 GeV, {c['2']:.5f} at 2 GeV (one loop)")
-    sing = res.singularity_gev2
-    if sing is not None and res.confirmed:
-        lines.append(f"  nearest singularity p^2 = {sing.real:.5f} ± {sing.imag:.5f} i GeV^2  ->  "
-                     f"M_max(eta=1/2) = {res.max_bound_state_mass_gev:.4f} GeV")
+    if "minus_qbarq_cbrt_gev" in summ:
+        ev = summ["minus_qbarq_evolution"]
+        lines.append(f"  (-<qbar q>)^(1/3) = {summ['minus_qbarq_cbrt_gev']:.5f} GeV at zeta, "
+                     f"{summ['minus_qbarq_cbrt_1gev_gev']:.5f} GeV at 1 GeV, {summ['minus_qbarq_cbrt_2gev_gev']:.5f} GeV "
+                     f"at 2 GeV (one-loop evolution, Lambda_QCD = {ev['lambda_qcd_gev']:g} GeV, n_f = {ev['n_f']:g})")
+    sing = summ["nearest_singularity_gev2"]
+    if sing is not None:
+        lines.append(f"  nearest singularity p^2 = {sing['re']:.5f} ± {abs(sing['im']):.5f} i GeV^2  ->  "
+                     f"M_max(eta=1/2) = {summ['max_bound_state_mass_gev']:.4f} GeV")
     else:
-        lines.append(f"  M_max: {res.m_max_status()}")
+        lines.append(f"  M_max: {summ['max_bound_state_mass_status']}")
     lines.append(f"  residual {s.residual:.1e} after {s.iterations} Newton steps on {s.radial.size} nodes; "
                  f"{res.seconds:.2f} s" + (" (from cache)" if res.from_cache else ""))
     lines += [f"  note: {n}" for n in s.notes]
@@ -127,7 +141,6 @@ def cmd_run(args) -> int:
     _echo(cfg, config, args.quiet)
     _check_store(cfg, args.no_cache)
     from . import export, pipeline, plots  # the numerics (JAX) only after the input is checked
-    from .channels import get as channel
     from .store import atomic_write_text
     store = pipeline.store_of(cfg, not args.no_cache)
     say = _progress(args.quiet)
@@ -135,17 +148,13 @@ def cmd_run(args) -> int:
     summ = result.summary()
     say(f"writing {final}/")
     export.write_results_h5(result, out / "results.h5")
-    figs = {"mass_function": "mass_function.png"}
-    plots.mass_function(result.quarks, out / "mass_function.png")
     for name, q in result.quarks.items():
         export.write_netcdf(export.propagator_dataset(q), out / f"propagator_{name}.nc")
         export.write_propagator_csv(q, out / f"propagator_{name}.csv")
     for m in result.mesons:
-        plots.eigenvalue_curve(m, out / f"eigenvalues_{m.name}.png")
-        plots.leading_amplitudes(m, channel(m.channel).basis_labels, out / f"amplitudes_{m.name}.png")
         export.write_netcdf(export.amplitude_dataset(m), out / f"amplitude_{m.name}.nc")
-        figs[m.name] = [f"eigenvalues_{m.name}.png", f"amplitudes_{m.name}.png"]
-    summ["figures"] = figs
+    # the figures are drawn from results.h5, as `rlmeson plot` redraws them
+    summ["figures"] = [f.name for f in plots.draw_runs([plots.read_run(out / "results.h5")], out)]
     atomic_write_text(out / "summary.json", json.dumps(summ, indent=2, allow_nan=False) + "\n")
     _move_into_place(out, final)
     print(_table(result))
@@ -154,20 +163,66 @@ def cmd_run(args) -> int:
 
 
 def _table(result) -> str:
+    """The results table: masses with their grid error, f (convention labelled), the
+    normalisation agreement, the identity that checks each state (AV-WTI for a massive
+    pseudoscalar, |λ(0) − 1| for a chiral-limit Goldstone boson) and the next eigenvalue;
+    results through an unvalidated route are marked and explained below the table."""
     conv = result.config.output.decay_constant_convention
     rows = [f"{result.config.name}: {result.summary()['regularisation_description']}",
             f"{'meson':<10}{'channel':<14}{'M [GeV]':>12}{'± (grid)':>10}{'f [GeV]':>11}{'± (grid)':>10}"
-            f"{'N agree':>9}{'AV-WTI':>10}{'next λ':>8}",
-            "-" * 94]
+            f"{'N agree':>9}{'identity':>17}{'next λ':>8}",
+            "-" * 101]
+    notes = []
     for m in result.mesons:
         s = m.summary()
-        rows.append(f"{m.name:<10}{m.channel:<14}{s['mass_gev']:>12.6f}{_fmt(s['mass_error_gev'], '.1e'):>10}"
+        if "goldstone_residual" in s:
+            mass, err = "0 (chiral)", "—"
+            ident = f"|λ(0)-1| {_fmt(s['goldstone_residual'], '.0e')}"
+        else:
+            mass, err = f"{s['mass_gev']:.6f}", _fmt(s["mass_error_gev"], ".1e")
+            ident = "—" if s.get("awti_residual") is None else f"AV-WTI {s['awti_residual']:.1e}"
+        name = m.name if s["validated"] else m.name + " *"
+        if not s["validated"]:
+            notes.append(f"* {m.name}: not validated: {s['validation_reason']}")
+        rows.append(f"{name:<10}{m.channel:<14}{mass:>12}{err:>10}"
                     f"{s['decay_constant_gev']:>11.6f}{_fmt(s['decay_constant_error_gev'], '.1e'):>10}"
-                    f"{s['normalisation_agreement']:>9.1e}{_fmt(s.get('awti_residual'), '.1e'):>10}"
+                    f"{s['normalisation_agreement']:>9.1e}{ident:>17}"
                     f"{_fmt(s['next_eigenvalue'], '.3f'):>8}")
     rows.append(f"decay constants in the {conv} MeV convention "
-                f"({'f_pi ~ 92 MeV' if conv == '92' else 'f_pi ~ 131 MeV, sqrt 2 larger'})")
-    return "\n".join(rows)
+                f"({'f_pi ~ 92 MeV' if conv == '92' else 'f_pi ~ 131 MeV, sqrt 2 larger'}); "
+                "± (grid): difference to a coarser grid")
+    return "\n".join(rows + notes)
+
+
+def _figure_format(plots, path) -> str:
+    try:
+        return plots.figure_format(path)
+    except plots.PlotError as e:
+        raise UsageError(str(e)) from None
+
+
+def cmd_plot(args) -> int:
+    """Redraw the figures of one or more runs from their results.h5 (no solving); with
+    several runs, M(p²) and the figures of same-named mesons are overlaid."""
+    from . import plots
+
+    fmt = args.format.lower()
+    if fmt not in plots.FORMATS:
+        raise UsageError(f"--format {args.format!r}: one of " + ", ".join(plots.FORMATS))
+    try:
+        runs = [plots.read_run(d) for d in args.dirs]
+    except plots.PlotError as e:
+        raise UsageError(str(e)) from None
+    if args.out:
+        out = Path(args.out)
+    elif len(args.dirs) == 1:
+        out = Path(args.dirs[0]) if Path(args.dirs[0]).is_dir() else Path(args.dirs[0]).parent
+    else:
+        raise UsageError("--out DIR is needed to overlay several runs")
+    out.mkdir(parents=True, exist_ok=True)
+    files = plots.draw_runs(runs, out, fmt, cut_above_regulator=not args.uncut)
+    print("\n".join(str(f) for f in files))
+    return EXIT_OK
 
 
 # ----------------------------------------------------------------------------------------
@@ -320,7 +375,7 @@ def _main(argv) -> int:
             args = _parser().parse_args(argv)
         except SystemExit as e:  # --help, --version
             return EXIT_OK if not e.code else EXIT_BAD_INPUT
-        return {"quark": cmd_quark, "run": cmd_run}[args.command](args)
+        return {"quark": cmd_quark, "run": cmd_run, "plot": cmd_plot}[args.command](args)
     except (ConfigError, UsageError) as e:
         print(f"rlmeson: {e}", file=sys.stderr)
         return EXIT_BAD_INPUT

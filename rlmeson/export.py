@@ -1,9 +1,12 @@
 """Outputs for people and for other codes.
 
 * ``results.h5``: plain HDF5 (datasets + attributes, readable with h5py alone):
-  ``/quarks/<flavour>/{q2, A, B, M, Z}`` and ``/mesons/<name>/{q2, z, amplitude_re,
-  amplitude_im, moments_re, moments_im, curve_mass, curve_eigenvalue}`` (+ ``EFGH_re/_im``
-  for pseudoscalars); each group's attributes hold its summary as JSON text.
+  ``/quarks/<flavour>/{q2, A, B, M, Z, above_regulator_scale}`` and ``/mesons/<name>/{q2,
+  z, amplitude_re, amplitude_im, moments_re, moments_im, curve_mass, curve_eigenvalue,
+  spectrum_mass, spectrum_p2, spectrum_re, spectrum_im, above_regulator_scale}`` (+
+  ``EFGH_re/_im`` for pseudoscalars); every dataset has ``units``, ``long_name`` and
+  ``dimensions`` attributes; the file and each group carry ``config_hash`` and
+  ``package_version``; each group's ``summary`` attribute holds its summary as JSON text.
 * xarray datasets (``propagator_dataset``, ``amplitude_dataset``) written as netCDF
   (classic format, so any netCDF reader can open them; complex numbers as _re/_im).
 * ``propagator_<flavour>.csv``: p², A, B, M, Z.
@@ -86,48 +89,145 @@ def write_propagator_csv(q, path) -> None:
     atomic_write_text(path, buf.getvalue())
 
 
-def write_results_h5(run, path) -> None:
+#: Units of E, F, G, H (the normalised Γ is dimensionless).
+EFGH_UNITS = ("1", "GeV^-1", "GeV^-3", "GeV^-2")
+
+
+def above_regulator_scale(kernel, q2) -> np.ndarray:
+    """True where q² exceeds the regulator scale Λ_R² of a translation-invariant
+    regularisation (there the dressing functions flatten: an artefact of the regulator,
+    not physics).  All False with a hard cutoff (the grid ends at Λ²)."""
+    q2 = np.asarray(q2, dtype=float)
+    if kernel.hard:
+        return np.zeros(q2.shape, dtype=bool)
+    return q2 > kernel.regulator_gev2
+
+
+def _dataset(g, name, data, units, dims, long_name):
     import h5py
 
+    d = g.create_dataset(name, data=data)
+    d.attrs["units"] = units
+    d.attrs["long_name"] = long_name
+    d.attrs["dimensions"] = np.array(list(dims), dtype=h5py.string_dtype())
+    return d
+
+
+def _attach(d, *scales):
+    for axis, sc in enumerate(scales):
+        if sc is not None:
+            d.dims[axis].attach_scale(sc)
+
+
+def write_results_h5(run, path) -> None:
+    """``results.h5`` (see the module doc).  Every dataset has ``units``, ``long_name``
+    and ``dimensions`` attributes (coordinates are also HDF5 dimension scales); the file
+    carries the run's ``config_hash``, the package version, the resolved inputs and the
+    summary, so another code can read it with h5py alone."""
+    import h5py
+
+    from . import __version__
+    from .pipeline import kernel_of
+
     summ = run.summary()
+    kern = kernel_of(run.config)
     with atomic_path(path) as tmp:
         with h5py.File(tmp, "w") as h:
+            h.attrs["created_by"] = f"rlmeson {__version__} (rlmeson run)"
+            h.attrs["package"] = "rlmeson"
+            h.attrs["package_version"] = __version__
+            h.attrs["config_hash"] = summ["config_hash"]
+            h.attrs["config_name"] = run.config.name
+            h.attrs["decay_constant_convention"] = observables.CONVENTION_LABELS[
+                run.config.output.decay_constant_convention]
+            h.attrs["regularisation"] = kern.label
+            h.attrs["regularisation_scale_gev2"] = kern.scale_gev2
             h.attrs["summary"] = json.dumps(summ, default=str)
             h.attrs["config"] = json.dumps(run.config.to_dict(), default=str)
+            h.attrs["inputs"] = json.dumps(summ["inputs"], default=str)
             for name, q in run.quarks.items():
                 g = h.create_group(f"quarks/{name}")
                 s = q.solution
-                for key, val in (("q2", s.q2), ("A", s.A), ("B", s.B), ("M", s.M), ("Z", s.Z)):
-                    g.create_dataset(key, data=val)
-                g.attrs["summary"] = json.dumps(q.summary(), default=str)
+                p2 = _dataset(g, "q2", s.q2, "GeV^2", ("p2",), "Euclidean momentum squared p^2 (real axis)")
+                p2.make_scale("p2")
+                for key, val, units, long in (
+                        ("A", s.A, "1", "vector dressing A(p^2)"),
+                        ("B", s.B, "GeV", "scalar dressing B(p^2)"),
+                        ("M", s.M, "GeV", "mass function M = B/A"),
+                        ("Z", s.Z, "1", "wave-function renormalisation Z = 1/A")):
+                    _attach(_dataset(g, key, val, units, ("p2",), long), p2)
+                flag = _dataset(g, "above_regulator_scale", above_regulator_scale(kern, s.q2), "1", ("p2",),
+                                "True above the regulator scale Lambda_R^2 (values there are regulator "
+                                "artefacts; figures leave them out)")
+                _attach(flag, p2)
+                g.attrs.update({"flavour": name, "current_mass_gev": s.mass_gev,
+                                "renormalisation_point_gev": s.zeta_gev, "regularisation_scale_gev2": kern.scale_gev2,
+                                "config_hash": summ["config_hash"], "package_version": __version__,
+                                "summary": json.dumps(q.summary(), default=str)})
             for m, ms in zip(run.mesons, summ["mesons"]):
-                g = h.create_group(f"mesons/{m.name}")
-                core = m.core
-                amp = core.normalised.amplitude * m.factor
-                mom = moments(amp, core.z)
-                g.create_dataset("q2", data=core.q2)
-                g.create_dataset("z", data=core.z)
-                g.create_dataset("amplitude_re", data=amp.real)
-                g.create_dataset("amplitude_im", data=amp.imag)
-                g.create_dataset("moments_re", data=mom.real)
-                g.create_dataset("moments_im", data=mom.imag)
-                cm, cl = core.curve.sorted()
-                g.create_dataset("curve_mass", data=cm)
-                g.create_dataset("curve_eigenvalue", data=cl)
-                if m.channel == "pseudoscalar" and core.mass_gev > 0:
-                    efgh = pseudoscalar_efgh(m)
-                    g.create_dataset("EFGH_re", data=efgh.real)
-                    g.create_dataset("EFGH_im", data=efgh.imag)
-                    g.attrs["EFGH"] = ("Gamma = gamma5 [i E + gamma.P F + gamma.q (q.P) G + sigma_mn q_m P_n H], "
-                                       "P = (0,0,0,iM); same convention as the amplitude")
-                g.attrs["covariants"] = json.dumps(list(channels.get(m.channel).basis_labels))
-                g.attrs["summary"] = json.dumps(ms, default=str)
+                _write_meson(h.create_group(f"mesons/{m.name}"), m, ms, kern, summ["config_hash"], __version__)
 
 
-def pseudoscalar_efgh(m) -> np.ndarray:
-    """E, F, G, H on the grid for a pseudoscalar result (run convention)."""
+def _write_meson(g, m, ms, kern, config_hash, version) -> None:
+    import h5py
+
+    core = m.core
+    conv = observables.CONVENTION_LABELS[m.convention]
+    amp = core.normalised.amplitude * m.factor
+    mom = moments(amp, core.z)
+    labels = list(channels.get(m.channel).basis_labels)
+    q2 = _dataset(g, "q2", core.q2, "GeV^2", ("q2",), "relative momentum squared q^2 (eta = 1/2)")
+    q2.make_scale("q2")
+    z = _dataset(g, "z", core.z, "1", ("z",), "cosine of the angle between q and P")
+    z.make_scale("z")
+    for part in ("re", "im"):
+        val = amp.real if part == "re" else amp.imag
+        _attach(_dataset(g, f"amplitude_{part}", val, "1", ("covariant", "z", "q2"),
+                         f"{'real' if part == 're' else 'imaginary'} part of the normalised amplitude's "
+                         f"coefficients of the covariants ({conv})"), None, z, q2)
+        val = mom.real if part == "re" else mom.imag
+        _attach(_dataset(g, f"moments_{part}", val, "1", ("covariant", "chebyshev_u_order", "q2"),
+                         f"Chebyshev-U moments F_m(q^2), F(q^2, z) = sum_m F_m U_m(z) ({part})"), None, None, q2)
+    _dataset(g, "above_regulator_scale", above_regulator_scale(kern, core.q2), "1", ("q2",),
+             "True above the regulator scale Lambda_R^2")
+    cm, cl = core.curve.sorted()
+    _dataset(g, "curve_mass", cm, "GeV", ("evaluation",), "masses M where the leading eigenvalue was evaluated")
+    _dataset(g, "curve_eigenvalue", cl, "1", ("evaluation",), "leading eigenvalue lambda(P^2 = -M^2)")
+    if core.spectrum is not None:
+        sm, sl = core.spectrum
+        _dataset(g, "spectrum_mass", sm, "GeV", ("point",), "masses M of the spectrum points")
+        _dataset(g, "spectrum_p2", -sm**2, "GeV^2", ("point",), "P^2 = -M^2 of the spectrum points")
+        _dataset(g, "spectrum_re", sl.real, "1", ("point", "eigenvalue"),
+                 "real part of the leading eigenvalues lambda_1 >= lambda_2 >= lambda_3 at P^2")
+        _dataset(g, "spectrum_im", sl.imag, "1", ("point", "eigenvalue"), "imaginary part of the same")
+    if m.channel == "pseudoscalar":
+        em = core.mass_gev if core.mass_gev > 0 else observables.CHIRAL_PROBES_GEV[0]
+        efgh = pseudoscalar_efgh(m, em)
+        for part in ("re", "im"):
+            d = _dataset(g, f"EFGH_{part}", efgh.real if part == "re" else efgh.imag,
+                         ", ".join(f"{c}: {u}" for c, u in zip("EFGH", EFGH_UNITS)), ("component", "z", "q2"),
+                         f"E, F, G, H ({part}; {conv})")
+            d.attrs["component_units"] = np.array(EFGH_UNITS, dtype=h5py.string_dtype())
+            _attach(d, None, z, q2)
+        g.attrs["EFGH"] = ("Gamma = gamma5 [i E + gamma.P F + gamma.q (q.P) G + sigma_mn q_m P_n H], "
+                           "P = (0,0,0,iM); same convention as the amplitude")
+        g.attrs["EFGH_mass_gev"] = em
+        if core.mass_gev == 0:
+            g.attrs["EFGH_note"] = (f"chiral limit: evaluated from the off-shell solution at M = {em:g} GeV "
+                                    "(F, G, H multiply gamma.P)")
+    g.attrs["covariants"] = json.dumps(labels)
+    g.attrs["convention"] = conv
+    g.attrs["config_hash"] = config_hash
+    g.attrs["package_version"] = version
+    g.attrs["summary"] = json.dumps(ms, default=str)
+
+
+def pseudoscalar_efgh(m, mass_gev: float | None = None) -> np.ndarray:
+    """E, F, G, H on the grid for a pseudoscalar result (run convention), at the bound
+    state's mass (or ``mass_gev``: the off-shell probe mass of a chiral-limit result)."""
     from types import SimpleNamespace
 
     core = m.core
     view = SimpleNamespace(z=core.z, q2=core.q2, channel=channels.get("pseudoscalar"))
-    return observables.pseudoscalar_standard_basis(view, core.normalised.amplitude * m.factor, core.mass_gev)
+    return observables.pseudoscalar_standard_basis(view, core.normalised.amplitude * m.factor,
+                                                   core.mass_gev if mass_gev is None else mass_gev)

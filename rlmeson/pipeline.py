@@ -21,7 +21,7 @@ import numpy as np
 from . import __version__
 from . import bse, channels, gap, observables, search, singularities
 from .config import Config, ConfigError, MesonConfig, meson_label
-from .kernel import Kernel
+from .kernel import N_C, Kernel
 from .store import Store
 
 Progress = Callable[[str], None]
@@ -157,11 +157,60 @@ class QuarkResult:
         return (f"{zero} where the shifted continuation is regular (|D|/norm = {self.singularity_check:.2g}); "
                 f"{limit}")
 
+    def singularity_report(self) -> dict:
+        """The propagator's nearest singularity and M_max as reported (the one place that
+        reads ``singularity_gev2``, ``singularity_check`` and ``max_bound_state_mass_gev``):
+        an unconfirmed zero is not reported as the singularity but under ``rejected_…``."""
+        sing = self.singularity_gev2
+        point = None if sing is None else {"re": float(sing.real), "im": float(sing.imag)}
+        out = {
+            "nearest_singularity_gev2": point if self.confirmed else None,
+            "nearest_singularity_method": ("zero of p^2 A^2 + B^2 located with the direct continuation, "
+                                           "confirmed with the shifted one (|D|/norm below "
+                                           f"{SINGULARITY_CONFIRMED:g})"),
+            "singularity_shifted_check": _finite(self.singularity_check),
+            "max_bound_state_mass_gev": _finite(self.max_bound_state_mass_gev) if self.confirmed else None,
+            "max_bound_state_mass_eta": 0.5,
+            "max_bound_state_mass_status": self.m_max_status(),
+            "bound_state_search_limit_gev": _finite(self.search_limit_gev),
+        }
+        if sing is not None and not self.confirmed:
+            out["rejected_singularity_gev2"] = point
+            out["rejected_singularity_max_bound_state_mass_gev"] = _finite(self.max_bound_state_mass_gev)
+            out["rejected_singularity_reason"] = (
+                "the direct continuation has a zero here but the shifted continuation is regular there"
+                if self.singularity_check is not None else
+                "the direct continuation has a zero here; the shifted gap equation did not converge there to check it")
+        return out
+
+    def inputs(self) -> dict:
+        """The resolved inputs this quark was computed from (model, parameters, scales, grid)."""
+        s = self.solution
+        k = s.kernel
+        kern = {"regularisation": k.regularisation, "regularisation_scale_gev2": k.scale_gev2,
+                "kernel_carries_z2_squared": k.z2_squared}
+        if k.hard:
+            kern["cutoff_gev2"] = k.cutoff_gev2
+        else:
+            kern.update(regulator_gev2=k.regulator_gev2, grid_end_gev2=k.grid_end_gev2)
+        g = s.grid
+        return {
+            "interaction": {"model": k.model, "parameters": {n: float(v) for n, v in sorted(k.params.items())}},
+            "kernel": kern,
+            "renormalisation_point_gev": s.zeta_gev,
+            "current_mass_gev": s.mass_gev,
+            "gap_grid": {"q2_min_gev2": g.q2_min, "panel_widths_ln_q2": list(g.widths), "order": g.order,
+                         "angular_points": g.angular_half, "nodes": int(s.radial.size),
+                         "q2_max_gev2": float(k.q2_max)},
+            "conventions": QUARK_CONVENTIONS,
+        }
+
     def summary(self) -> dict:
         s = self.solution
         k = s.kernel
         out = {
             "flavour": self.flavour,
+            "inputs": self.inputs(),
             "Z2": s.z2,
             "Zm": s.zm,
             "Z4": s.z4,
@@ -173,11 +222,7 @@ class QuarkResult:
             "mass_function_at_zero_method": "linear extrapolation of M evaluated directly at p^2 = 1e-4, 2e-4 GeV^2",
             "residual": s.residual,
             "iterations": s.iterations,
-            "max_bound_state_mass_gev": _finite(self.max_bound_state_mass_gev) if self.confirmed else None,
-            "max_bound_state_mass_status": self.m_max_status(),
-            "max_bound_state_mass_direct_estimate_gev": _finite(self.max_bound_state_mass_gev),
-            "nearest_singularity_gev2": (None if self.singularity_gev2 is None else
-                                         [self.singularity_gev2.real, self.singularity_gev2.imag]),
+            **self.singularity_report(),
             "regularisation": k.regularisation,
             "regularisation_scale_gev2": k.scale_gev2,
             "kernel_carries_z2_squared": k.z2_squared,
@@ -187,11 +232,33 @@ class QuarkResult:
             "from_cache": self.from_cache,
         }
         if self.condensate_cbrt_gev is not None:
-            out["chiral_condensate_cbrt_gev"] = self.condensate_cbrt_gev["zeta"]
-            out["chiral_condensate_cbrt_1gev_gev"] = self.condensate_cbrt_gev["1"]
-            out["chiral_condensate_cbrt_2gev_gev"] = self.condensate_cbrt_gev["2"]
-            out["chiral_condensate_evolution"] = "one loop, [ln(mu/Lambda_QCD)/ln(zeta/Lambda_QCD)]^gamma_m"
+            lam, nf = condensate_evolution_inputs(k)
+            out["minus_qbarq_cbrt_gev"] = self.condensate_cbrt_gev["zeta"]
+            out["minus_qbarq_cbrt_1gev_gev"] = self.condensate_cbrt_gev["1"]
+            out["minus_qbarq_cbrt_2gev_gev"] = self.condensate_cbrt_gev["2"]
+            out["minus_qbarq_definition"] = ("(-<qbar q>)^(1/3) in the chiral limit, -<qbar q> = Z4 N_c "
+                                             "∫_q tr S(q) over the regularised domain; first at zeta, then "
+                                             "evolved to 1 and 2 GeV")
+            out["minus_qbarq_evolution"] = {
+                "order": "one loop", "factor": "[ln(mu/Lambda_QCD)/ln(zeta/Lambda_QCD)]^gamma_m on -<qbar q>",
+                "lambda_qcd_gev": lam, "n_f": nf, "gamma_m": 12.0 / (33.0 - 2.0 * nf)}
         return out
+
+
+#: What the quark outputs assume (Euclidean conventions of the package).
+QUARK_CONVENTIONS = {
+    "metric": "Euclidean",
+    "propagator": "S(p) = 1/(i gamma.p A(p^2) + B(p^2)); M = B/A, Z = 1/A",
+    "gauge": "Landau",
+    "renormalisation": "A(zeta^2) = 1, B(zeta^2) = m(zeta)",
+    "units": "GeV",
+}
+
+
+def condensate_evolution_inputs(k: Kernel) -> tuple[float, float]:
+    """(Λ_QCD [GeV], n_f) used by the one-loop evolution of the condensate
+    (``gap.GapSolution.condensate_cbrt``: the model's parameters, else 0.234 GeV and 4)."""
+    return float(k.params.get("lambda_qcd_gev", 0.234)), float(k.params.get("flavours", 4.0))
 
 
 def _finite(x):
@@ -281,6 +348,8 @@ class BoundStateCore:
     q2: np.ndarray = field(repr=False)
     z: np.ndarray = field(repr=False)
     shifted_residual: float | None
+    #: the leading SPECTRUM_K eigenvalues λ_i(P² = −M²) at a few masses: (masses (n,), λ (n, k))
+    spectrum: tuple[np.ndarray, np.ndarray] | None = field(default=None, repr=False)
 
 
 def _guess(channel: str, quark: QuarkResult, m_max: float) -> float:
@@ -302,8 +371,9 @@ def check_mass_guess(cfg: Config, meson: MesonConfig, quarks: dict[str, QuarkRes
 
 
 def bound_state(cfg: Config, meson: MesonConfig, quarks: dict[str, QuarkResult],
-                grid: bse.BSEGrid, progress: Progress = _quiet) -> BoundStateCore:
-    """Mass, normalised amplitude and observables of one meson on one grid."""
+                grid: bse.BSEGrid, progress: Progress = _quiet, spectrum: bool = False) -> BoundStateCore:
+    """Mass, normalised amplitude and observables of one meson on one grid (and, with
+    ``spectrum``, the leading eigenvalues at a few P² for the λ(P²) figure)."""
     kern = kernel_of(cfg)
     q1, q2 = quarks[meson.quarks[0]], quarks[meson.quarks[1]]
     ch = channels.get(meson.channel)
@@ -330,12 +400,53 @@ def bound_state(cfg: Config, meson: MesonConfig, quarks: dict[str, QuarkResult],
         curve = _merge(sol.curve, lead.curve)
         evals += len(lead.curve.masses)
         m_eval = mass
-    vals, _ = bs.eigen(m_eval, k=2, v0=vec)
+    vals, _ = bs.eigen(m_eval, k=SPECTRUM_K if spectrum else 2, v0=vec)
     nxt = float(vals[1].real) if len(vals) > 1 else None
     shifted = bs._last.residuals[-1] if getattr(bs, "_last", None) is not None else None
+    spec = _spectrum(bs, lead, mass, m_max, m_eval, vals) if spectrum else None
     return BoundStateCore(mass_gev=mass, chiral=chiral, normalised=nrm, next_eigenvalue=nxt,
                           goldstone_residual=goldstone, curve=curve, evaluations=evals,
-                          q2=bs.q2, z=bs.z, shifted_residual=shifted)
+                          q2=bs.q2, z=bs.z, shifted_residual=shifted, spectrum=spec)
+
+
+#: Eigenvalues per point of the λ(P²) spectrum drawn for a meson (the leading one and
+#: the next two), and the masses, as fractions of the bound-state mass, where they are
+#: evaluated besides the mass itself (P² = 0 up to past the crossing; the last point is
+#: M + max(0.2 M, SPECTRUM_BEYOND_GEV), so that a light pion's curve shows its slope).
+SPECTRUM_K = 3
+SPECTRUM_FRACTIONS = (0.0, 0.5, 0.8, 1.1)
+SPECTRUM_BEYOND_GEV = 0.15
+#: ARPACK tolerance of the spectrum points (a figure's data, not a result)
+SPECTRUM_TOL = 1e-8
+#: For a chiral-limit Goldstone boson (crossing at P² = 0): masses in GeV.
+SPECTRUM_CHIRAL_GEV = (0.0, 0.1, 0.2, 0.3)
+
+
+def _spectrum(bs, lead: search.Leading, mass: float, m_max: float, m_eval: float, vals) \
+        -> tuple[np.ndarray, np.ndarray]:
+    """λ_1..λ_k at a handful of masses from P² = 0 to past the crossing (the figure's
+    data).  Each solve starts from the nearest leading eigenvector already known; a point
+    where a solve fails or that lies beyond M_max is left out (the curve is a picture,
+    not a result)."""
+    from scipy.sparse.linalg import ArpackNoConvergence
+
+    from .routed import ShiftedNotConverged
+
+    targets = (SPECTRUM_CHIRAL_GEV if mass == 0.0 else
+               tuple(f * mass for f in SPECTRUM_FRACTIONS) + (mass + max(0.2 * mass, SPECTRUM_BEYOND_GEV),))
+    points = {float(m_eval): np.asarray(vals[:SPECTRUM_K], dtype=complex)}
+    for m in targets:
+        if m >= 0.98 * m_max or m in points:
+            continue
+        near = min(lead.vecs, key=lambda x: abs(x - m)) if lead.vecs else None
+        try:
+            v, _ = bs.eigen(m, k=SPECTRUM_K, v0=None if near is None else lead.vecs[near], tol=SPECTRUM_TOL)
+        except (ShiftedNotConverged, ArpackNoConvergence, ValueError, FloatingPointError):
+            continue
+        if len(v) == SPECTRUM_K and np.all(np.isfinite(v)):
+            points[float(m)] = np.asarray(v, dtype=complex)
+    ms = np.array(sorted(points))
+    return ms, np.stack([points[m] for m in ms])
 
 
 def _normalise_at(bs, lead: search.Leading, mass: float, vec) -> observables.Normalised:
@@ -370,29 +481,54 @@ class MesonResult:
     current_masses_gev: tuple[float, float]
     seconds: float
     from_cache: bool = False
+    continuation: str = "shifted"
+    eta: float = 0.5
 
     @property
     def factor(self) -> float:
         return observables.CONVENTIONS[self.convention]
 
+    def route_check(self) -> tuple[bool, list[str]]:
+        """Whether the result came through a route the README calls validated (equal
+        flavours, η = 1/2, shifted continuation), and why not."""
+        why = []
+        if self.quarks[0] != self.quarks[1]:
+            why.append("unequal flavours: only the direct continuation is available and it is not "
+                       "validated for them (README, Limitations)")
+        if self.continuation != "shifted":
+            why.append("direct continuation: a cross-check route, not the analytic continuation where "
+                       "g(0) != 0 (README, 'Continuation to complex momenta')")
+        if self.eta != 0.5:
+            why.append(f"momentum partition eta = {self.eta:g}: only eta = 1/2 is validated")
+        return not why, why
+
     def summary(self) -> dict:
         c, n = self.core, self.core.normalised
         f = n.decay_constant * self.factor
+        ok, why = self.route_check()
         out = {
             "name": self.name,
             "channel": self.channel,
             "jpc": channels.get(self.channel).jpc,
             "quarks": list(self.quarks),
+            "current_masses_gev": list(self.current_masses_gev),
+            "continuation": self.continuation,
+            "eta": self.eta,
+            "validated": ok,
+            "validation_reason": "; ".join(why) if why else "equal flavours, eta = 1/2, shifted continuation",
             "mass_gev": c.mass_gev,
+            "mass_method": ("chiral limit: M = 0 by Goldstone's theorem (not solved for); "
+                            "see goldstone_residual = |lambda(P^2 = 0) - 1|" if c.chiral else
+                            "root of lambda(P^2 = -M^2) = 1"),
             "mass_error_gev": None,
             "decay_constant_gev": f,
             "decay_constant_error_gev": None,
             "decay_constant_convention": observables.CONVENTION_LABELS[self.convention],
             "decay_constant_sqrt2_convention_gev": n.decay_constant,
-            "eigenvalue_slope": n.eigenvalue_slope,
+            "eigenvalue_slope_gev-2": n.eigenvalue_slope,
             "normalisation": "nakanishi",
             "normalisation_agreement": n.normalisation_agreement,
-            "norm_sign": float(np.real(n.norm_phase)),
+            "norm_sign": int(round(float(np.real(n.norm_phase)))),
             "next_eigenvalue": c.next_eigenvalue,
             "bse_evaluations": c.evaluations,
             "seconds": self.seconds,
@@ -400,19 +536,26 @@ class MesonResult:
         }
         if c.chiral:
             out["goldstone_residual"] = c.goldstone_residual
+            out["chiral_limit_method"] = ("normalisation and observables extrapolated in M^2 to M = 0 from "
+                                          "off-shell solutions at M = " +
+                                          ", ".join(f"{m:g}" for m in observables.CHIRAL_PROBES_GEV) + " GeV")
         if self.coarse is not None:
-            out["mass_error_gev"] = abs(c.mass_gev - self.coarse.mass_gev)
+            if not c.chiral:
+                out["mass_error_gev"] = abs(c.mass_gev - self.coarse.mass_gev)
             out["decay_constant_error_gev"] = abs(n.decay_constant - self.coarse.normalised.decay_constant) * self.factor
             out["error_estimate"] = "difference to a second, coarser grid"
         if n.condensate is not None:
             rho = n.condensate * self.factor
             out["in_meson_condensate_gev2"] = rho
+            out["in_meson_condensate_convention"] = out["decay_constant_convention"]
+            out["in_meson_condensate_sqrt2_convention_gev2"] = n.condensate
             msum = sum(self.current_masses_gev)
             if c.chiral or msum == 0.0:
                 out["awti_residual"] = None
             else:
                 lhs = f * c.mass_gev**2
                 out["awti_residual"] = (lhs - msum * rho) / lhs
+            out["awti_residual_definition"] = "(f M^2 - (m1 + m2) rho)/(f M^2), exact in rainbow-ladder"
         return out
 
 
@@ -424,6 +567,8 @@ def _core_to_store(prefix: str, c: BoundStateCore, arrays: dict, attrs: dict) ->
     arrays[f"{prefix}z"] = c.z
     ms, ls = c.curve.sorted()
     arrays[f"{prefix}curve"] = np.stack([ms, ls])
+    if c.spectrum is not None:
+        arrays[f"{prefix}spectrum_mass"], arrays[f"{prefix}spectrum"] = c.spectrum
     attrs[f"{prefix}core"] = {
         "mass_gev": c.mass_gev, "chiral": c.chiral, "next_eigenvalue": c.next_eigenvalue,
         "goldstone_residual": c.goldstone_residual, "evaluations": c.evaluations,
@@ -448,10 +593,13 @@ def _core_from_store(prefix: str, arrays: dict, attrs: dict) -> BoundStateCore:
     curve = search.EigenCurve()
     for m, lam in arrays[f"{prefix}curve"].T:
         curve.add(m, lam)
+    spec = None
+    if f"{prefix}spectrum_mass" in arrays and f"{prefix}spectrum" in arrays:
+        spec = (np.asarray(arrays[f"{prefix}spectrum_mass"]), np.asarray(arrays[f"{prefix}spectrum"]))
     return BoundStateCore(mass_gev=a["mass_gev"], chiral=a["chiral"], normalised=n,
                           next_eigenvalue=a["next_eigenvalue"], goldstone_residual=a["goldstone_residual"],
                           curve=curve, evaluations=a["evaluations"], q2=arrays[f"{prefix}q2"],
-                          z=arrays[f"{prefix}z"], shifted_residual=a["shifted_residual"])
+                          z=arrays[f"{prefix}z"], shifted_residual=a["shifted_residual"], spectrum=spec)
 
 
 def solve_meson(cfg: Config, meson: MesonConfig, quarks: dict[str, QuarkResult],
@@ -462,9 +610,12 @@ def solve_meson(cfg: Config, meson: MesonConfig, quarks: dict[str, QuarkResult],
     key = stage_key(cfg, cfg.meson_key(meson) + ("e" if cfg.output.error_bar else "n"))
     masses = tuple(quarks[q].solution.mass_gev for q in meson.quarks)
     common = dict(name=meson.name, channel=meson.channel, quarks=meson.quarks, key=key,
-                  convention=cfg.output.decay_constant_convention, current_masses_gev=masses)
+                  convention=cfg.output.decay_constant_convention, current_masses_gev=masses,
+                  continuation=cfg.bse.continuation, eta=meson.eta)
     if store is not None:
         hit = store.get("meson", key)
+        if hit is not None and not {"spectrum_mass", "spectrum"} <= set(hit.arrays):
+            hit = None   # an entry written before the λ(P²) spectrum was stored: recompute
         if hit is not None:
             progress(f"{meson.name}: from cache")
             coarse = _core_from_store("coarse_", hit.arrays, hit.attrs) if "coarse_core" in hit.attrs else None
@@ -472,7 +623,7 @@ def solve_meson(cfg: Config, meson: MesonConfig, quarks: dict[str, QuarkResult],
                                seconds=time.perf_counter() - t0, from_cache=True, **common)
     grid = bse_grid_of(cfg)
     progress(f"{meson.name}: building the {meson.channel} kernel and solving")
-    core = bound_state(cfg, meson, quarks, grid, progress)
+    core = bound_state(cfg, meson, quarks, grid, progress, spectrum=True)
     coarse = None
     if cfg.output.error_bar:
         progress(f"{meson.name}: second, coarser grid for the error estimate")
@@ -499,6 +650,20 @@ class RunResult:
     mesons: list[MesonResult]
     seconds: float
 
+    def inputs(self) -> dict:
+        """The resolved config (defaults filled in, in the nesting of the TOML file) and
+        the conventions every number of the run is reported in."""
+        conv = self.config.output.decay_constant_convention
+        kern = {**self.config.kernel.relevant(), "regularisation_scale_gev2": kernel_of(self.config).scale_gev2}
+        return {**self.config.to_dict(), "kernel": kern, "conventions": {
+            **QUARK_CONVENTIONS,
+            "rest_frame": "P = (0, 0, 0, iM), P^2 = -M^2 on shell; q^ = (0, 0, sqrt(1 - z^2), z)",
+            "decay_constant": observables.CONVENTION_LABELS[conv],
+            "amplitude": ("normalised Bethe-Salpeter amplitude in the same convention as f (Nakanishi "
+                          "normalisation; divided by sqrt 2 in the 92 MeV convention)"),
+            "colours": N_C,
+        }}
+
     def summary(self) -> dict:
         k = kernel_of(self.config)
         first = self.config.flavours[0].name
@@ -511,6 +676,7 @@ class RunResult:
             "regularisation_scale_gev2": k.scale_gev2,
             "regularisation_description": k.label,
             "continuation": self.config.bse.continuation,
+            "inputs": self.inputs(),
             "quark": self.quarks[first].summary(),
             "quarks": {n: q.summary() for n, q in self.quarks.items()},
             "mesons": [m.summary() for m in self.mesons],

@@ -68,3 +68,51 @@ def pion_hard(mt_hard, light_hard):
 @pytest.fixture(scope="session")
 def rng():
     return np.random.default_rng(20261201)
+
+
+#: A run with the three kinds of meson the figures must handle (chiral-limit Goldstone
+#: boson, massive pseudoscalar, vector) on a reduced BSE grid, default regularisation
+#: (translation-invariant, so that the regulator cut of the figures is exercised).
+FIGURE_RUN_CFG = """
+name = "figure-check"
+[quarks.c]
+current_mass_gev = 0.0
+[quarks.l]
+current_mass_gev = 0.005
+[[mesons]]
+name = "pi0"
+channel = "pseudoscalar"
+quarks = ["c", "c"]
+[[mesons]]
+name = "pi"
+channel = "pseudoscalar"
+quarks = ["l", "l"]
+[[mesons]]
+name = "rho"
+channel = "vector"
+quarks = ["l", "l"]
+[numerics.bse]
+order = 6
+z_points = 6
+[output]
+error_bar = false
+"""
+
+
+@pytest.fixture(scope="session")
+def figure_run(tmp_path_factory):
+    """(run directory, stdout) of `rlmeson run` on FIGURE_RUN_CFG."""
+    from rlmeson import cli
+
+    d = tmp_path_factory.mktemp("figure-run")
+    cfg = d / "figure-check.toml"
+    cfg.write_text(FIGURE_RUN_CFG)
+    out = d / "run"
+    import contextlib
+    import io
+
+    buf = io.StringIO()
+    with contextlib.redirect_stdout(buf), contextlib.redirect_stderr(io.StringIO()):
+        code = cli.main(["run", str(cfg), "--out", str(out), "--quiet"])
+    assert code == 0, buf.getvalue()
+    return out, buf.getvalue()

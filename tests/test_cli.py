@@ -41,11 +41,11 @@ def test_quark_json_has_the_documented_keys_and_chiral_extras(tmp_path, capsys, 
     code, out, _ = _run(["quark", _write(tmp_path, QUARK_CFG.format(mass=0.0)), "--json"], capsys)
     assert code == 0
     d = json.loads(out)
-    assert REQUIRED | {"chiral_condensate_cbrt_gev", "chiral_condensate_cbrt_1gev_gev"} <= set(d)
+    assert REQUIRED | {"minus_qbarq_cbrt_gev", "minus_qbarq_cbrt_1gev_gev"} <= set(d)
     assert d["regularisation"] == "hard-cutoff" and d["residual"] < 1e-10
     code, out, _ = _run(["quark", _write(tmp_path, QUARK_CFG.format(mass=0.005), "m.toml"), "--json"], capsys)
     d = json.loads(out)
-    assert REQUIRED <= set(d) and "chiral_condensate_cbrt_gev" not in d
+    assert REQUIRED <= set(d) and "minus_qbarq_cbrt_gev" not in d
 
 
 def test_quark_summary_and_plot(tmp_path, capsys, monkeypatch):
@@ -131,7 +131,7 @@ def test_run_writes_outputs_and_summary(tmp_path, capsys, monkeypatch):
     assert s["regularisation"] == "hard-cutoff" and REQUIRED <= set(s["quark"])
     m = s["mesons"][0]
     for k in ("name", "channel", "mass_gev", "mass_error_gev", "decay_constant_gev", "decay_constant_convention",
-              "eigenvalue_slope", "normalisation_agreement", "awti_residual", "in_meson_condensate_gev2"):
+              "eigenvalue_slope_gev-2", "normalisation_agreement", "awti_residual", "in_meson_condensate_gev2"):
         assert k in m
     with h5py.File(out / "results.h5") as h:
         assert "mesons/pi/amplitude_re" in h and "quarks/l/B" in h and "mesons/pi/EFGH_re" in h
