@@ -212,3 +212,47 @@ def test_a_result_through_an_unvalidated_route_is_marked(figure_run, light_quark
     assert ms["validated"] is False and "unequal flavours" in ms["validation_reason"]
     table = cli._table(dataclasses.replace(run, mesons=[m]))
     assert "kaon *" in table and "not validated" in table and "unequal flavours" in table
+
+
+def test_quark_json_records_its_inputs(light_quark, tmp_path):
+    p = tmp_path / "q.toml"
+    p.write_text('name = "q"\n[kernel]\nregularisation = "hard-cutoff"\n[quarks.l]\ncurrent_mass_gev = 0.00374\n')
+    code, out, err = _main(["quark", p, "--json"])
+    assert code == 0, err
+    d = json.loads(out)
+    inp = d["inputs"]
+    assert inp["interaction"]["model"] == "maris-tandy" and inp["interaction"]["parameters"]["omega_gev"] == 0.4
+    assert inp["kernel"] == {"regularisation": "hard-cutoff", "regularisation_scale_gev2": 1e5,
+                             "kernel_carries_z2_squared": True, "cutoff_gev2": 1e5}
+    assert inp["renormalisation_point_gev"] == 19.0 and inp["current_mass_gev"] == 0.00374
+    assert inp["gap_grid"]["nodes"] == len(light_quark[1].solution.q2)
+    assert d["nearest_singularity_gev2"]["re"] == light_quark[1].singularity_gev2.real
+
+
+def test_a_meson_cache_entry_without_the_spectrum_is_recomputed(figure_run, tmp_path, monkeypatch):
+    """Entries written before the λ(P²) spectrum was stored must not be read as complete."""
+    from rlmeson.store import Store
+
+    cfg = config.parse((figure_run[0].parent / "figure-check.toml").read_text())
+    store = pipeline.store_of(cfg)
+    quarks = {n: pipeline.solve_quark(cfg, n, store) for n in ("l",)}
+    meson = cfg.mesons[1]
+
+    class Recomputed(Exception):
+        pass
+
+    def refuse(*a, **k):
+        raise Recomputed
+
+    monkeypatch.setattr(pipeline, "bound_state", refuse)
+    asked = []
+    get = store.get
+    monkeypatch.setattr(store, "get", lambda kind, key: asked.append((kind, key)) or get(kind, key))
+    assert pipeline.solve_meson(cfg, meson, quarks, store).from_cache        # a complete entry is used
+    kind, key = asked[-1]
+    entry = get(kind, key)
+    assert {"spectrum", "spectrum_mass"} <= set(entry.arrays)
+    old = Store(tmp_path / "old")
+    old.put(kind, key, {k: v for k, v in entry.arrays.items() if not k.startswith("spectrum")}, entry.attrs)
+    with pytest.raises(Recomputed):
+        pipeline.solve_meson(cfg, meson, quarks, old)
