@@ -55,17 +55,24 @@ def bse_grid_of(cfg: Config) -> bse.BSEGrid:
                        n_z=b.z_points, angular_half=b.angular_points)
 
 
-@functools.lru_cache(maxsize=1)
-def package_source_hash() -> str:
-    """sha256 over the names and bytes of the package's own ``.py`` files: an edited
-    checkout gets new cache keys even without a version bump."""
+def source_hash(directory) -> str:
+    """sha256 over the names and bytes of the ``.py`` files in ``directory``."""
     import hashlib
     from pathlib import Path
 
     digest = hashlib.sha256()
-    for f in sorted(Path(__file__).resolve().parent.glob("*.py")):
+    for f in sorted(Path(directory).glob("*.py")):
         digest.update(f.name.encode() + b"\0" + f.read_bytes() + b"\0")
     return digest.hexdigest()[:16]
+
+
+@functools.lru_cache(maxsize=1)
+def package_source_hash() -> str:
+    """``source_hash`` of this package (once per process): an edited checkout gets new
+    cache keys even without a version bump."""
+    from pathlib import Path
+
+    return source_hash(Path(__file__).resolve().parent)
 
 
 def user_module_hash(model: str) -> str:

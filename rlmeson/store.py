@@ -418,7 +418,7 @@ def _read_entry(path: Path, entry: str) -> Entry:
 def _file_identity(path: Path) -> tuple | None:
     try:
         st = os.stat(path)
-    except FileNotFoundError:
+    except OSError:  # absent, or a path through a file or an unreadable directory: a miss
         return None
     return (st.st_dev, st.st_ino, st.st_size, st.st_mtime_ns)
 
