@@ -407,10 +407,10 @@ def bound_state(cfg: Config, meson: MesonConfig, quarks: dict[str, QuarkResult],
         curve = _merge(sol.curve, lead.curve)
         evals += len(lead.curve.masses)
         m_eval = mass
-    vals, _ = bs.eigen(m_eval, k=SPECTRUM_K if spectrum else 2, v0=vec)
+    vals, vecs = bs.eigen(m_eval, k=SPECTRUM_K if spectrum else 2, v0=vec)
     nxt = float(vals[1].real) if len(vals) > 1 else None
     shifted = bs._last.residuals[-1] if getattr(bs, "_last", None) is not None else None
-    spec = _spectrum(bs, lead, mass, m_max, m_eval, vals) if spectrum else None
+    spec = _spectrum(bs, mass, m_max, m_eval, vals, vecs) if spectrum else None
     return BoundStateCore(mass_gev=mass, chiral=chiral, normalised=nrm, next_eigenvalue=nxt,
                           goldstone_residual=goldstone, curve=curve, evaluations=evals,
                           q2=bs.q2, z=bs.z, shifted_residual=shifted, spectrum=spec)
@@ -421,20 +421,19 @@ def bound_state(cfg: Config, meson: MesonConfig, quarks: dict[str, QuarkResult],
 #: evaluated besides the mass itself (P² = 0 up to past the crossing; the last point is
 #: M + max(0.2 M, SPECTRUM_BEYOND_GEV), so that a light pion's curve shows its slope).
 SPECTRUM_K = 3
-SPECTRUM_FRACTIONS = (0.0, 0.5, 0.8, 1.1)
+SPECTRUM_FRACTIONS = (0.0, 0.6, 1.1)
 SPECTRUM_BEYOND_GEV = 0.15
 #: ARPACK tolerance of the spectrum points (a figure's data, not a result)
-SPECTRUM_TOL = 1e-8
+SPECTRUM_TOL = 1e-7
 #: For a chiral-limit Goldstone boson (crossing at P² = 0): masses in GeV.
 SPECTRUM_CHIRAL_GEV = (0.0, 0.1, 0.2, 0.3)
 
 
-def _spectrum(bs, lead: search.Leading, mass: float, m_max: float, m_eval: float, vals) \
-        -> tuple[np.ndarray, np.ndarray]:
+def _spectrum(bs, mass: float, m_max: float, m_eval: float, vals, vecs) -> tuple[np.ndarray, np.ndarray]:
     """λ_1..λ_k at a handful of masses from P² = 0 to past the crossing (the figure's
-    data).  Each solve starts from the nearest leading eigenvector already known; a point
-    where a solve fails or that lies beyond M_max is left out (the curve is a picture,
-    not a result)."""
+    data).  Points are solved outwards from the bound state, each starting from the sum of
+    the k eigenvectors of the nearest point already solved; a point where a solve fails
+    or that lies beyond M_max is left out (the curve is a picture, not a result)."""
     from scipy.sparse.linalg import ArpackNoConvergence
 
     from .routed import ShiftedNotConverged
@@ -442,16 +441,18 @@ def _spectrum(bs, lead: search.Leading, mass: float, m_max: float, m_eval: float
     targets = (SPECTRUM_CHIRAL_GEV if mass == 0.0 else
                tuple(f * mass for f in SPECTRUM_FRACTIONS) + (mass + max(0.2 * mass, SPECTRUM_BEYOND_GEV),))
     points = {float(m_eval): np.asarray(vals[:SPECTRUM_K], dtype=complex)}
-    for m in targets:
+    start = {float(m_eval): np.asarray(vecs).sum(axis=1)}
+    for m in sorted(targets, key=lambda x: abs(x - m_eval)):
         if m >= 0.98 * m_max or m in points:
             continue
-        near = min(lead.vecs, key=lambda x: abs(x - m)) if lead.vecs else None
+        near = min(start, key=lambda x: abs(x - m))
         try:
-            v, _ = bs.eigen(m, k=SPECTRUM_K, v0=None if near is None else lead.vecs[near], tol=SPECTRUM_TOL)
+            v, w = bs.eigen(m, k=SPECTRUM_K, v0=start[near], tol=SPECTRUM_TOL)
         except (ShiftedNotConverged, ArpackNoConvergence, ValueError, FloatingPointError):
             continue
         if len(v) == SPECTRUM_K and np.all(np.isfinite(v)):
             points[float(m)] = np.asarray(v, dtype=complex)
+            start[float(m)] = np.asarray(w).sum(axis=1)
     ms = np.array(sorted(points))
     return ms, np.stack([points[m] for m in ms])
 
