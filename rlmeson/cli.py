@@ -56,7 +56,30 @@ def _parser() -> argparse.ArgumentParser:
                                                 "needed for several runs)")
     g.add_argument("--format", default="png", help="png, pdf or svg (default png)")
     g.add_argument("--uncut", action="store_true", help="keep values above the regulator scale in M(p²)")
+    e = sub.add_parser("export", help="write propagators (real axis, complex region, rational approximant) "
+                                      "and amplitudes for other codes")
+    e.add_argument("source", metavar="SOURCE", help="a run directory (written by 'rlmeson run') or a config file")
+    e.add_argument("--what", choices=("propagator", "amplitude", "all"), default="all")
+    e.add_argument("--format", choices=("netcdf", "hdf5", "csv"), default="netcdf",
+                   help="netcdf (netCDF-4), hdf5 (plain HDF5) or csv (the propagator's real axis only)")
+    e.add_argument("--out", metavar="DIR", default=".", help="directory for the files (default: here)")
+    e.add_argument("--region-mass", metavar="GEV", type=_positive_gev,
+                   help="bound-state mass M whose parabola (apex -M^2/4) the propagator is exported on "
+                        "(default: the largest meson mass of the run, else 0.9 M_max)")
+    e.add_argument("--flavour", help="only this flavour's propagator (default: every flavour)")
+    e.add_argument("--no-cache", action="store_true")
+    e.add_argument("--quiet", action="store_true")
     return p
+
+
+def _positive_gev(text: str) -> float:
+    try:
+        v = float(text)
+    except ValueError:
+        v = float("nan")
+    if not (v > 0.0 and v < 100.0):
+        raise argparse.ArgumentTypeError(f"{text!r}: allowed a mass in GeV, 0 < M < 100")
+    return v
 
 
 def _progress(quiet: bool):
@@ -140,7 +163,7 @@ def cmd_run(args) -> int:
     out = _stage(final, "--out" if args.out else "the default output directory")  # checked before any work
     _echo(cfg, config, args.quiet)
     _check_store(cfg, args.no_cache)
-    from . import export, pipeline, plots  # the numerics (JAX) only after the input is checked
+    from . import exchange, export, pipeline, plots  # the numerics (JAX) only after the input is checked
     from .store import atomic_write_text
     store = pipeline.store_of(cfg, not args.no_cache)
     say = _progress(args.quiet)
@@ -148,17 +171,111 @@ def cmd_run(args) -> int:
     summ = result.summary()
     say(f"writing {final}/")
     export.write_results_h5(result, out / "results.h5")
+    radial = pipeline.bse_grid_of(cfg).radial(pipeline.kernel_of(cfg).q2_max)
     for name, q in result.quarks.items():
-        export.write_netcdf(export.propagator_dataset(q), out / f"propagator_{name}.nc")
-        export.write_propagator_csv(q, out / f"propagator_{name}.csv")
+        exchange.write_netcdf(exchange.propagator_dataset(cfg, q), out / f"propagator_{name}.nc")
+        exchange.write_propagator_csv(cfg, q, out / f"propagator_{name}.csv")
     for m in result.mesons:
-        export.write_netcdf(export.amplitude_dataset(m), out / f"amplitude_{m.name}.nc")
+        exchange.write_netcdf(exchange.amplitude_dataset(cfg, m, radial), out / f"amplitude_{m.name}.nc")
     # the figures are drawn from results.h5, as `rlmeson plot` redraws them
     summ["figures"] = [f.name for f in plots.draw_runs([plots.read_run(out / "results.h5")], out)]
     atomic_write_text(out / "summary.json", json.dumps(summ, indent=2, allow_nan=False) + "\n")
     _move_into_place(out, final)
     print(_table(result))
     print(f"\noutputs in {final}/ (summary.json, results.h5, figures, netCDF and CSV exports)")
+    return EXIT_OK
+
+
+def _config_of_source(source: str):
+    """(config, meson masses of the run or None) of a run directory or a config file."""
+    from . import config
+
+    src = Path(source)
+    if src.is_dir():
+        path = src / "results.h5"
+        try:
+            import h5py
+
+            with h5py.File(path, "r") as h:
+                cfg_dict = json.loads(h.attrs["config"])
+                summ = json.loads(h.attrs["summary"])
+        except (OSError, KeyError, ValueError) as e:
+            raise UsageError(f"SOURCE {source}: not a run directory of rlmeson (cannot read {path}: "
+                             f"{type(e).__name__})") from None
+        cfg = config.from_dict(cfg_dict, source=str(path))
+        masses = {m["name"]: (m.get("mass_gev"), tuple(m.get("quarks") or ())) for m in summ.get("mesons", [])}
+        return cfg, masses
+    if src.is_file():
+        return config.load(src), None
+    raise UsageError(f"SOURCE {source}: neither a run directory nor a config file")
+
+
+def _region_mass(args, cfg, quark, masses) -> float:
+    """The exported parabola's mass: the option, else the largest bound-state mass made of
+    this flavour (run summary, else the config's mass guesses), else 0.9 M_max; always
+    below M_max, where the shifted continuation is the analytic one."""
+    m_max = quark.max_bound_state_mass_gev if quark.confirmed else None
+    if args.region_mass is not None:
+        if m_max is not None and args.region_mass >= m_max:
+            raise UsageError(f"--region-mass {args.region_mass:g}: allowed below M_max = {m_max:.5g} GeV for "
+                             f"flavour {quark.flavour} (beyond it the parabola encloses the propagator's "
+                             "singularity)")
+        return args.region_mass
+    cands = []
+    if masses:
+        cands = [m for m, qs in masses.values() if m and quark.flavour in qs]
+    else:
+        cands = [m.mass_guess_gev for m in cfg.mesons if m.mass_guess_gev and quark.flavour in m.quarks]
+    top = 0.9 * (m_max or quark.search_limit_gev)
+    return float(min(max(cands), top) if cands else top)
+
+
+def cmd_export(args) -> int:
+    cfg, masses = _config_of_source(args.source)
+    if args.format == "csv" and args.what != "propagator":
+        raise UsageError(f"--format csv: holds the propagator's real axis only; allowed with --what propagator "
+                         f"(got --what {args.what})")
+    if args.flavour is not None:
+        if not args.flavour or args.flavour not in [f.name for f in cfg.flavours]:
+            raise UsageError(f"--flavour {args.flavour!r}: allowed {', '.join(f.name for f in cfg.flavours)}")
+    if args.what in ("amplitude", "all") and not cfg.mesons:
+        raise UsageError(f"--what {args.what}: the config {cfg.name} lists no mesons")
+    out = Path(args.out)
+    if out.exists() and not out.is_dir():
+        raise UsageError(f"--out {out}: exists and is not a directory")
+    base = _nearest_existing(out)
+    if not base.is_dir() or not os.access(base, os.W_OK | os.X_OK):
+        raise UsageError(f"--out {out}: {base} cannot be written")
+    _check_store(cfg, args.no_cache)
+    from . import exchange, pipeline  # the numerics (JAX) only after the input is checked
+
+    out.mkdir(parents=True, exist_ok=True)
+    store = pipeline.store_of(cfg, not args.no_cache)
+    say = _progress(args.quiet)
+    names = [args.flavour] if args.flavour else [f.name for f in cfg.flavours]
+    if args.what in ("amplitude", "all"):
+        names = list(dict.fromkeys(names + [q for m in cfg.mesons for q in m.quarks]))
+    quarks = {n: pipeline.solve_quark(cfg, n, store, say) for n in names}
+    written = []
+    if args.what in ("propagator", "all"):
+        for n in ([args.flavour] if args.flavour else [f.name for f in cfg.flavours]):
+            q = quarks[n]
+            path = exchange.target(out, "propagator", n, args.format)
+            if args.format == "csv":
+                exchange.write_propagator_csv(cfg, q, path)
+            else:
+                plane = pipeline.quark_plane(cfg, q, _region_mass(args, cfg, q, masses), 0.5, store, say)
+                exchange.write(exchange.propagator_dataset(cfg, q, plane), path, args.format)
+            written.append(path)
+    if args.what in ("amplitude", "all"):
+        radial = pipeline.bse_grid_of(cfg).radial(pipeline.kernel_of(cfg).q2_max)
+        for m in cfg.mesons:
+            res = pipeline.solve_meson(cfg, m, quarks, store, say)
+            path = exchange.target(out, "amplitude", m.name, args.format)
+            exchange.write(exchange.amplitude_dataset(cfg, res, radial), path, args.format)
+            written.append(path)
+    for p in written:
+        print(p)
     return EXIT_OK
 
 
@@ -375,7 +492,7 @@ def _main(argv) -> int:
             args = _parser().parse_args(argv)
         except SystemExit as e:  # --help, --version
             return EXIT_OK if not e.code else EXIT_BAD_INPUT
-        return {"quark": cmd_quark, "run": cmd_run, "plot": cmd_plot}[args.command](args)
+        return {"quark": cmd_quark, "run": cmd_run, "plot": cmd_plot, "export": cmd_export}[args.command](args)
     except (ConfigError, UsageError) as e:
         print(f"rlmeson: {e}", file=sys.stderr)
         return EXIT_BAD_INPUT

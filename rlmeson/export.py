@@ -7,9 +7,7 @@
   ``EFGH_re/_im`` for pseudoscalars); every dataset has ``units``, ``long_name`` and
   ``dimensions`` attributes; the file and each group carry ``config_hash`` and
   ``package_version``; each group's ``summary`` attribute holds its summary as JSON text.
-* xarray datasets (``propagator_dataset``, ``amplitude_dataset``) written as netCDF
-  (classic format, so any netCDF reader can open them; complex numbers as _re/_im).
-* ``propagator_<flavour>.csv``: p², A, B, M, Z.
+* the files for other codes (netCDF-4, plain HDF5, CSV) are written by ``exchange``.
 
 Amplitudes are stored in the run's decay-constant convention, labelled in the attributes.
 Covariant order and definitions: ``channels`` (``basis_labels``); moments are the
@@ -28,65 +26,12 @@ from . import quadrature as qd
 from .store import atomic_path, atomic_write_text
 
 
-def propagator_dataset(q):
-    import xarray as xr
-
-    s = q.solution
-    ds = xr.Dataset(
-        {"A": ("p2", s.A), "B": ("p2", s.B), "M": ("p2", s.M), "Z": ("p2", s.Z)},
-        coords={"p2": ("p2", s.q2, {"units": "GeV^2"})},
-        attrs={"description": "dressed quark propagator S(p) = 1/(i gamma.p A + B), Euclidean p^2",
-               "B_units": "GeV", "M_units": "GeV", "Z2": s.z2, "Zm": s.zm,
-               "current_mass_gev": s.mass_gev, "renormalisation_point_gev": s.zeta_gev,
-               "regularisation": s.kernel.label, "flavour": q.flavour, "config_key": q.key},
-    )
-    return ds
-
-
 def moments(amp: np.ndarray, z: np.ndarray) -> np.ndarray:
     """Chebyshev-U moments over the z axis (axis 1) of node values."""
     n = len(z)
     _, w = qd.chebyshev_u_nodes(n)
     u = qd.chebyshev_u(n - 1, z)  # (k, m)
     return (2.0 / np.pi) * np.einsum("k,km,ikq->imq", w, u, amp)
-
-
-def amplitude_dataset(m):
-    import xarray as xr
-
-    core = m.core
-    amp = core.normalised.amplitude * m.factor
-    mom = moments(amp, core.z)
-    labels = list(channels.get(m.channel).basis_labels)
-    ds = xr.Dataset(
-        {"amplitude_re": (("covariant", "z", "q2"), amp.real),
-         "amplitude_im": (("covariant", "z", "q2"), amp.imag),
-         "moments_re": (("covariant", "m", "q2"), mom.real),
-         "moments_im": (("covariant", "m", "q2"), mom.imag)},
-        coords={"covariant": ("covariant", np.arange(len(labels))), "z": ("z", core.z),
-                "m": ("m", np.arange(len(core.z))), "q2": ("q2", core.q2, {"units": "GeV^2"})},
-        attrs={"meson": m.name, "channel": m.channel, "mass_gev": core.mass_gev,
-               "covariants": json.dumps(labels),
-               "convention": observables.CONVENTION_LABELS[m.convention],
-               "frame": "rest frame, P = (0,0,0,iM), q^ = (0,0,sqrt(1-z^2),z), eta = 1/2",
-               "normalisation": "Nakanishi (canonical agreement %.2e)" % core.normalised.normalisation_agreement},
-    )
-    return ds
-
-
-def write_netcdf(ds, path) -> None:
-    with atomic_path(path) as tmp:
-        ds.to_netcdf(tmp, engine="scipy", format="NETCDF3_64BIT")
-
-
-def write_propagator_csv(q, path) -> None:
-    s = q.solution
-    buf = io.StringIO()
-    buf.write(f"# dressed quark propagator, flavour {q.flavour}, {s.kernel.label}\n")
-    buf.write("p2_gev2,A,B_gev,M_gev,Z\n")
-    for row in zip(s.q2, s.A, s.B, s.M, s.Z):
-        buf.write(",".join(f"{v:.16e}" for v in row) + "\n")
-    atomic_write_text(path, buf.getvalue())
 
 
 #: Units of E, F, G, H (the normalised Γ is dimensionless).

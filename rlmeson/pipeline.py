@@ -19,7 +19,7 @@ from typing import Callable
 import numpy as np
 
 from . import __version__
-from . import bse, channels, gap, observables, search, singularities
+from . import bse, channels, gap, observables, quarkplane, search, singularities
 from .config import Config, ConfigError, MesonConfig, meson_label
 from .kernel import N_C, Kernel
 from .store import Store
@@ -134,6 +134,13 @@ class QuarkResult:
     condensate_cbrt_gev: dict | None       # {"zeta": .., "1": .., "2": ..} in the chiral limit
     seconds: float
     from_cache: bool
+    # cross-check: the zero found with the direct continuation (not analytic when g(0) ≠ 0)
+    direct_singularity_gev2: complex | None = None
+    direct_max_mass_gev: float | None = None
+    # the analytic object the singularity was taken from (quarkplane): where it was sampled
+    # and its error on held-out samples
+    plane_region_mass_gev: float | None = None
+    plane_holdout_error: float | None = None
 
     @property
     def confirmed(self) -> bool:
@@ -151,12 +158,13 @@ class QuarkResult:
 
     def m_max_status(self) -> str:
         if self.singularity_gev2 is None:
-            return ("no singularity found in the scanned region (|p^2| up to 3 M(0)^2); bound-state "
+            return ("no zero of p^2 A^2 + B^2 found within |p^2| <= "
+                    f"{quarkplane.WINDOW_GEV2:g} GeV^2 of the analytic continuation; bound-state "
                     f"searches may go up to 2.2 M(0) = {self.search_limit_gev:.4g} GeV")
         if self.confirmed:
-            return (f"singularity located with the direct continuation and confirmed with the shifted one "
-                    f"(|D|/norm = {self.singularity_check:.2g} there)")
-        zero = (f"not confirmed: the direct continuation has a zero at p^2 = {self.singularity_gev2.real:.4g} "
+            return ("zero of p^2 A^2 + B^2 of the AAA approximant of the shifted continuation, confirmed by a "
+                    f"shifted solve just beyond M_max (|D|/norm = {self.singularity_check:.2g} there)")
+        zero = (f"not confirmed: the approximant has a zero at p^2 = {self.singularity_gev2.real:.4g} "
                 f"+ {self.singularity_gev2.imag:.4g} i GeV^2 (M = {self.max_bound_state_mass_gev:.4g} GeV)")
         limit = f"bound-state searches may go up to {self.search_limit_gev:.4g} GeV"
         if self.singularity_check is None:
@@ -167,27 +175,35 @@ class QuarkResult:
     def singularity_report(self) -> dict:
         """The propagator's nearest singularity and M_max as reported (the one place that
         reads ``singularity_gev2``, ``singularity_check`` and ``max_bound_state_mass_gev``):
-        an unconfirmed zero is not reported as the singularity but under ``rejected_…``."""
+        an unconfirmed zero is not reported as the singularity but under ``rejected_…``;
+        the direct continuation's zero is reported beside it as a cross-check."""
         sing = self.singularity_gev2
         point = None if sing is None else {"re": float(sing.real), "im": float(sing.imag)}
+        direct = self.direct_singularity_gev2
         out = {
             "nearest_singularity_gev2": point if self.confirmed else None,
-            "nearest_singularity_method": ("zero of p^2 A^2 + B^2 located with the direct continuation, "
-                                           "confirmed with the shifted one (|D|/norm below "
-                                           f"{SINGULARITY_CONFIRMED:g})"),
+            "nearest_singularity_method": (
+                "zero of p^2 A^2 + B^2 of rational (AAA) approximants of A and B built from the shifted "
+                "continuation on a parabola clear of it (analytic continuation), confirmed by a shifted solve "
+                f"just beyond M_max (|D|/norm below {SINGULARITY_CONFIRMED:g})"),
             "singularity_shifted_check": _finite(self.singularity_check),
+            "singularity_approximant_region_mass_gev": _finite(self.plane_region_mass_gev),
+            "singularity_approximant_holdout_error": _finite(self.plane_holdout_error),
             "max_bound_state_mass_gev": _finite(self.max_bound_state_mass_gev) if self.confirmed else None,
             "max_bound_state_mass_eta": 0.5,
             "max_bound_state_mass_status": self.m_max_status(),
             "bound_state_search_limit_gev": _finite(self.search_limit_gev),
+            "direct_continuation_singularity_gev2": (None if direct is None else
+                                                     {"re": float(direct.real), "im": float(direct.imag)}),
+            "direct_continuation_max_bound_state_mass_gev": _finite(self.direct_max_mass_gev),
         }
         if sing is not None and not self.confirmed:
             out["rejected_singularity_gev2"] = point
             out["rejected_singularity_max_bound_state_mass_gev"] = _finite(self.max_bound_state_mass_gev)
             out["rejected_singularity_reason"] = (
-                "the direct continuation has a zero here but the shifted continuation is regular there"
+                "the approximant has a zero here but the shifted continuation is regular there"
                 if self.singularity_check is not None else
-                "the direct continuation has a zero here; the shifted gap equation did not converge there to check it")
+                "the approximant has a zero here; the shifted gap equation did not converge there to check it")
         return out
 
     def inputs(self) -> dict:
@@ -293,25 +309,36 @@ def solve_quark(cfg: Config, flavour: str, store: Store | None = None,
     progress(f"quark {flavour}: solving the gap equation (m = {mass:g} GeV, zeta = {zeta:g} GeV)")
     sol = gap.solve(kern, mass, zeta, grid)
     m0 = sol.mass_function_at_zero()
-    progress(f"quark {flavour}: locating the propagator's complex singularities")
-    m_max, sing = singularities.max_bound_state_mass(sol, 0.5)
-    check = None
-    if sing is not None:
-        progress(f"quark {flavour}: checking the singularity with the shifted continuation")
-        check = singularities.check_with_shifted(sol, sing, 0.5)
+    progress(f"quark {flavour}: scanning the direct continuation for complex singularities (cross-check)")
+    direct_m_max, direct = singularities.max_bound_state_mass(sol, 0.5)
+    progress(f"quark {flavour}: continuing the shifted solution analytically to locate its singularities")
+    loc = quarkplane.locate(sol, None if direct is None else direct_m_max, 0.5)
+    sing = loc.nearest
+    m_max = float("inf") if sing is None else sing.max_mass(0.5)
+    check = loc.check
     cond = None
     if sol.chiral:
         cond = {"zeta": sol.condensate_cbrt(), "1": sol.condensate_cbrt(1.0), "2": sol.condensate_cbrt(2.0)}
+    plane_info = dict(direct_singularity_gev2=None if direct is None else complex(direct.s_gev2),
+                      direct_max_mass_gev=None if direct is None else float(direct_m_max),
+                      plane_region_mass_gev=loc.plane.samples.mass_gev,
+                      plane_holdout_error=loc.plane.holdout_error)
     res = QuarkResult(flavour=flavour, key=key, solution=sol, mass_function_at_zero_gev=m0,
                       max_bound_state_mass_gev=m_max,
                       singularity_gev2=None if sing is None else complex(sing.s_gev2),
                       singularity_check=check,
-                      condensate_cbrt_gev=cond, seconds=time.perf_counter() - t0, from_cache=False)
+                      condensate_cbrt_gev=cond, seconds=time.perf_counter() - t0, from_cache=False,
+                      **plane_info)
     if store is not None:
         attrs = {"z2": sol.z2, "z4m": sol.z4m, "z4": sol.z4, "iterations": sol.iterations, "notes": list(sol.notes),
                  "mass_gev": mass, "zeta_gev": zeta, "m0_gev": m0, "m_max_gev": _finite(m_max),
                  "singularity": None if sing is None else [sing.s_gev2.real, sing.s_gev2.imag],
                  "singularity_check": check,
+                 "direct_singularity": (None if direct is None else
+                                        [float(direct.s_gev2.real), float(direct.s_gev2.imag)]),
+                 "direct_m_max_gev": None if direct is None else _finite(direct_m_max),
+                 "plane_region_mass_gev": loc.plane.samples.mass_gev,
+                 "plane_holdout_error": loc.plane.holdout_error,
                  "condensate_cbrt_gev": cond, "regularisation": kern.label, "version": __version__,
                  "config_key": key, "grid": {"points": int(sol.radial.size), "edges": list(sol.radial.edges)}}
         store.try_put("quark", key, _quark_arrays(sol), attrs)
@@ -335,7 +362,12 @@ def _quark_from_entry(entry, kern, grid, flavour, key, mass, zeta, t0) -> QuarkR
                        singularity_gev2=None if sing is None else complex(*sing),
                        singularity_check=a.get("singularity_check"),
                        condensate_cbrt_gev=a.get("condensate_cbrt_gev"),
-                       seconds=time.perf_counter() - t0, from_cache=True)
+                       seconds=time.perf_counter() - t0, from_cache=True,
+                       direct_singularity_gev2=(None if a.get("direct_singularity") is None
+                                                else complex(*a["direct_singularity"])),
+                       direct_max_mass_gev=a.get("direct_m_max_gev"),
+                       plane_region_mass_gev=a.get("plane_region_mass_gev"),
+                       plane_holdout_error=a.get("plane_holdout_error"))
 
 
 # ----------------------------------------------------------------------------------------
@@ -701,3 +733,41 @@ def run(cfg: Config, store: Store | None = None, progress: Progress = _quiet) ->
 
 
 __all__ = ["run", "solve_quark", "solve_meson", "bound_state", "kernel_of"]
+
+
+# ----------------------------------------------------------------------------------------
+# The quark on the complex plane (for exports)
+
+#: z nodes of the region samples (the BSE's radial grid of the config, finer in z).
+REGION_Z_POINTS = 16
+
+
+def quark_plane(cfg: Config, quark: QuarkResult, region_mass_gev: float, eta: float = 0.5,
+                store: Store | None = None, progress: Progress = _quiet) -> quarkplane.QuarkPlane:
+    """The dressed quark on the parabola with apex −η²M² (M = ``region_mass_gev``): shifted
+    samples (cached) and their rational approximants and singularities."""
+    grid = bse_grid_of(cfg)
+    kern = kernel_of(cfg)
+    radial = grid.radial(kern.q2_max)
+    key = stage_key(cfg, f"{cfg.quark_key(quark.flavour)}|plane|{region_mass_gev!r}|{eta!r}|"
+                         f"{REGION_Z_POINTS}|{radial.edges!r}|{radial.order}")
+    samples = None
+    if store is not None:
+        hit = store.get("plane", key)
+        if hit is not None and hit.attrs.get("config_key") == key:
+            a = hit.arrays
+            samples = quarkplane.RegionSamples(
+                mass_gev=hit.attrs["mass_gev"], eta=hit.attrs["eta"], radial=radial, q2=a["q2"], z=a["z"],
+                A=a["A"], B=a["B"], A_longitudinal=a["A_longitudinal"], residual=hit.attrs["residual"],
+                seconds=0.0)
+            progress(f"quark {quark.flavour}: complex-plane samples from cache")
+    if samples is None:
+        progress(f"quark {quark.flavour}: shifted gap equation on the parabola of M = {region_mass_gev:g} GeV")
+        samples = quarkplane.sample(quark.solution, region_mass_gev, eta, n_z=REGION_Z_POINTS, grid=grid)
+        if store is not None:
+            store.try_put("plane", key, {"q2": samples.q2, "z": samples.z, "A": samples.A, "B": samples.B,
+                                         "A_longitudinal": samples.A_longitudinal},
+                          {"mass_gev": samples.mass_gev, "eta": samples.eta, "residual": samples.residual,
+                           "config_key": key, "version": __version__})
+    progress(f"quark {quark.flavour}: rational approximants (AAA) and their zeros")
+    return quarkplane.build(quark.solution, samples)

@@ -102,20 +102,30 @@ def max_bound_state_mass(sol: GapSolution, eta: float = 0.5) -> tuple[float, Sin
     return best.max_mass(eta), best
 
 
+#: How far beyond M_max the check solves.  Just beyond, so that s₀ lies inside the
+#: parabola; not further, because once the parabola encloses a zero of S⁻¹ the shifted
+#: loop runs over the singularity and its quadrature degrades: measured for Maris–Tandy
+#: (hard cutoff) and Qin–Chang at their analytic zeros, |D|/norm = 0.003–0.01 at
+#: 1.003–1.01 M_max but 0.03–0.16 at 1.02 and 0.1–0.2 at 1.05 (and the covariance
+#: residual of the shifted solve grows alike, 5e-3 → 2e-2 → 0.1).
+CHECK_BEYOND = 1.01
+
+
 def check_with_shifted(sol: GapSolution, sing: Singularity, eta: float = 0.5, n_z: int = 16,
-                       widths=None) -> float | None:
+                       widths=None, solver=None) -> float | None:
     """|D(s₀)| / (|s₀| |A|² + |B|²) with A, B from the *shifted* (analytic) continuation,
-    solved at a mass just above M_max so that s₀ lies inside its parabola.
+    solved at a mass just above M_max (``CHECK_BEYOND``) so that s₀ lies inside its parabola.
 
     Small (≲ 0.05) confirms the singularity found with the direct continuation; of order
     one means the direct continuation produced it (possible when g(0) ≠ 0) and the true
     propagator is regular there.  None when the shifted solve does not converge there."""
     from . import bse, ladder, routed
 
-    m = 1.02 * sing.max_mass(eta)
-    grid = bse.BSEGrid() if widths is None else bse.BSEGrid(widths=widths)
-    lg = ladder.LadderGrid(grid.radial(sol.kernel.q2_max), n_z)
-    solver = routed.ShiftedSolver(sol, lg)
+    m = CHECK_BEYOND * sing.max_mass(eta)
+    if solver is None:
+        grid = bse.BSEGrid() if widths is None else bse.BSEGrid(widths=widths)
+        solver = routed.ShiftedSolver(sol, ladder.LadderGrid(grid.radial(sol.kernel.q2_max), n_z))
+    lg = solver.grid
     # reach m by continuation from 0.7 m, where the covariant Taylor start is good
     try:
         sp = solver.solve(m, eta, guess=solver.solve(0.7 * m, eta))

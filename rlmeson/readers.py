@@ -1,0 +1,201 @@
+"""Readers for the exchange files (``exchange``): netCDF-4 or plain HDF5, opened with
+h5py alone (both formats keep the same variable names at the root).
+
+``open_propagator(path)`` evaluates A, B, σ_V, σ_S and M
+
+* at real p² ≥ 0 on the exported range by Lagrange interpolation in ln p² on the
+  solution's own panels (accuracy: README, "Files for other codes");
+* at complex p² inside the exported parabola through the rational approximant where
+  |p²| ≤ its window, and by interpolation of the region nodes (Chebyshev-U in z,
+  Lagrange in ln q²) beyond it;
+
+and refuses, with a ``ValueError`` naming the point and the region, anything outside.
+``open_amplitude(path)`` evaluates the normalised Bethe–Salpeter amplitude's covariant
+coefficients at any (q², z) on the exported range.
+"""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import numpy as np
+
+from . import quadrature as qd
+from .quarkplane import Rational
+
+
+def _open(path):
+    import h5py
+
+    p = Path(path)
+    if not p.is_file():
+        raise ValueError(f"{path}: no such file")
+    try:
+        return h5py.File(p, "r")
+    except OSError as e:
+        raise ValueError(f"{path}: not an HDF5/netCDF-4 file ({e})") from None
+
+
+def _attr(h, name, default=None):
+    v = h.attrs.get(name, default)
+    if isinstance(v, bytes):
+        v = v.decode()
+    if isinstance(v, np.ndarray) and v.size == 1 and v.dtype.kind in "fiu":
+        v = v.item()
+    return v
+
+
+def _complex(h, name):
+    return np.asarray(h[f"{name}_re"][()]) + 1j * np.asarray(h[f"{name}_im"][()])
+
+
+class Propagator:
+    """A dressed quark read from an exchange file (see the module doc)."""
+
+    def __init__(self, path):
+        with _open(path) as h:
+            if _attr(h, "quantity") != "quark_propagator":
+                raise ValueError(f"{path}: not a propagator file (quantity = {_attr(h, 'quantity')!r})")
+            self.path = str(path)
+            self.attrs = {k: _attr(h, k) for k in h.attrs}
+            self.p2 = np.asarray(h["p2"][()])
+            self._real = {k: np.asarray(h[k][()]) for k in ("A", "B")}
+            self._radial = qd.RadialGrid(tuple(np.asarray(self.attrs["real_axis_ln_p2_panel_edges"]).tolist()),
+                                         int(self.attrs["real_axis_panel_order"]))
+            self.has_region = "region_A_re" in h
+            if self.has_region:
+                self.region_mass_gev = float(self.attrs["region_mass_gev"])
+                self.eta = float(self.attrs["region_eta"])
+                self.window_gev2 = float(self.attrs["approximant_window_gev2"])
+                self._rz = np.asarray(h["region_z"][()])
+                self._rq2 = np.asarray(h["region_q2"][()])
+                self._rA, self._rB = _complex(h, "region_A"), _complex(h, "region_B")
+                self._rradial = qd.RadialGrid(tuple(np.asarray(self.attrs["region_ln_q2_panel_edges"]).tolist()),
+                                              int(self.attrs["region_panel_order"]))
+                self.approximants = {f: Rational(_complex(h, f"aaa_{f}_support"), _complex(h, f"aaa_{f}_values"),
+                                                 _complex(h, f"aaa_{f}_weights")) for f in ("A", "B")}
+                self.singularities = _complex(h, "singularity_p2")
+
+    # -- where values exist ---------------------------------------------------------------
+    def _region_coordinates(self, s):
+        m = self.eta * self.region_mass_gev
+        q2 = s.real + m * m
+        with np.errstate(divide="ignore", invalid="ignore"):
+            z = np.where(q2 > 0, s.imag / (2.0 * m * np.sqrt(np.maximum(q2, 1e-300))), np.inf)
+        return q2, z
+
+    def _check(self, s):
+        real = s.imag == 0
+        bad_real = real & ((s.real < self.p2[0]) | (s.real > self.p2[-1]))
+        bad = bad_real.copy()
+        if self.has_region:
+            q2, z = self._region_coordinates(s)
+            inside = (q2 >= self._rq2[0]) & (q2 <= self._rq2[-1]) & (np.abs(z) <= 1.0)
+            bad |= ~real & ~inside
+        else:
+            bad |= ~real
+        if bad.any():
+            p = s.ravel()[np.argmax(bad.ravel())]
+            where = f"real p^2 in [{self.p2[0]:.3g}, {self.p2[-1]:.3g}] GeV^2"
+            if self.has_region:
+                where += (f", or complex p^2 inside the parabola with apex {-(self.eta * self.region_mass_gev) ** 2:.4g}"
+                          f" GeV^2 and q^2 = Re p^2 + {(self.eta * self.region_mass_gev) ** 2:.4g} in "
+                          f"[{self._rq2[0]:.3g}, {self._rq2[-1]:.3g}] GeV^2")
+            else:
+                where += " (this file has no complex region: export it with a region)"
+            raise ValueError(f"p^2 = {p.real:.6g}{p.imag:+.6g}i GeV^2 lies outside the exported region: {where}")
+
+    # -- evaluation -----------------------------------------------------------------------
+    def dressing(self, p2) -> tuple[np.ndarray, np.ndarray]:
+        """A(p²), B(p²) (complex arrays) at real or complex p²."""
+        s = np.atleast_1d(np.asarray(p2, dtype=complex))
+        self._check(s)
+        a = np.empty(s.shape, complex)
+        b = np.empty(s.shape, complex)
+        real = s.imag == 0
+        if real.any():
+            t = np.log(s.real[real])
+            a[real] = self._radial.interpolate(self._real["A"], t)
+            b[real] = self._radial.interpolate(self._real["B"], t)
+        cplx = ~real
+        if cplx.any():
+            near = cplx & (np.abs(s) <= self.window_gev2)
+            if near.any():
+                a[near] = self.approximants["A"](s[near])
+                b[near] = self.approximants["B"](s[near])
+            far = cplx & ~near
+            if far.any():
+                a[far], b[far] = self._interpolate_region(s[far])
+        shape = np.shape(p2)
+        return a.reshape(shape), b.reshape(shape)
+
+    def _interpolate_region(self, s):
+        q2, z = self._region_coordinates(s)
+        n = self._rz.size
+        _, w = qd.chebyshev_u_nodes(n)
+        u_nodes = qd.chebyshev_u(n - 1, self._rz)
+        uz = qd.chebyshev_u(n - 1, z)
+        out = []
+        for f in (self._rA, self._rB):
+            mom = (2.0 / np.pi) * np.einsum("k,km,kq->mq", w, u_nodes, f)
+            rad = self._rradial.interpolate(mom, np.log(q2))
+            out.append(np.einsum("pm,mp->p", uz, rad))
+        return out[0], out[1]
+
+    def A(self, p2):
+        return self.dressing(p2)[0]
+
+    def B(self, p2):
+        return self.dressing(p2)[1]
+
+    def M(self, p2):
+        a, b = self.dressing(p2)
+        return b / a
+
+    def sigma_v(self, p2):
+        a, b = self.dressing(p2)
+        return a / (np.asarray(p2) * a * a + b * b)
+
+    def sigma_s(self, p2):
+        a, b = self.dressing(p2)
+        return b / (np.asarray(p2) * a * a + b * b)
+
+
+class Amplitude:
+    """A normalised Bethe–Salpeter amplitude read from an exchange file."""
+
+    def __init__(self, path):
+        with _open(path) as h:
+            if _attr(h, "quantity") != "bethe_salpeter_amplitude":
+                raise ValueError(f"{path}: not an amplitude file (quantity = {_attr(h, 'quantity')!r})")
+            self.path = str(path)
+            self.attrs = {k: _attr(h, k) for k in h.attrs}
+            self.q2 = np.asarray(h["q2"][()])
+            self.z = np.asarray(h["z"][()])
+            self.moments = _complex(h, "moments")          # (covariant, m, q)
+            labels = h["covariant_label"][()]
+            self.covariants = [x.decode() if isinstance(x, bytes) else str(x) for x in labels]
+            self._radial = qd.RadialGrid(tuple(np.asarray(self.attrs["ln_q2_panel_edges"]).tolist()),
+                                         int(self.attrs["panel_order"]))
+        self.mass_gev = float(self.attrs["mass_gev"])
+        self.summary = json.loads(self.attrs.get("meson_summary", "{}"))
+
+    def __call__(self, q2, z) -> np.ndarray:
+        """Coefficients F_i(q², z) of the covariants, shape (n_covariants, *broadcast shape)."""
+        q2, z = np.broadcast_arrays(np.asarray(q2, float), np.asarray(z, float))
+        if np.any(q2 < self.q2[0]) or np.any(q2 > self.q2[-1]) or np.any(np.abs(z) > 1):
+            raise ValueError(f"(q^2, z) outside the exported range: q^2 in [{self.q2[0]:.3g}, {self.q2[-1]:.3g}] "
+                             "GeV^2, |z| <= 1")
+        n = self.z.size
+        rad = self._radial.interpolate(self.moments, np.log(q2.ravel()))   # (i, m, P)
+        uz = qd.chebyshev_u(n - 1, z.ravel())                               # (P, m)
+        return np.einsum("pm,imp->ip", uz, rad).reshape((-1,) + q2.shape)
+
+
+def open_propagator(path) -> Propagator:
+    return Propagator(path)
+
+
+def open_amplitude(path) -> Amplitude:
+    return Amplitude(path)
