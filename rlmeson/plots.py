@@ -321,7 +321,7 @@ def amplitudes_figure(mesons: list[tuple[str, MesonData]], n_panels: int = 4):
     for ax in list(axes.flat)[len(order):]:
         ax.set_visible(False)
     axes.flat[0].legend(fontsize=7)
-    what = "mass 0 (chiral limit)" if m0.chiral else f"M = {m0.mass_gev:.5g} GeV"
+    what = "M = 0, chiral limit" if m0.chiral else f"M = {m0.mass_gev:.5g} GeV"
     fig.suptitle(f"{m0.name} ({m0.channel}, {what}): normalised amplitude; {m0.component_note}\n"
                  f"convention {m0.convention}", fontsize=8)
     fig.tight_layout()
