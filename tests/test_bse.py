@@ -57,7 +57,10 @@ def test_goldstone_eigenvalue_is_one_in_the_chiral_limit(fixture, request):
     bs = bse.BoundState(sol.kernel, channels.get("pseudoscalar"), bse.BSEGrid(), sol, continuation="direct")
     lam = bs.eigen(0.0, k=2)[0]
     assert abs(lam[0].real - 1.0) < 1e-4
-    assert lam[1].real < 0.9                              # the pion is isolated
+    # the pion is isolated: the next eigenvalue near P² = 0 is measured at 0.58 (the
+    # pion of mt-pion.toml, "next λ" in the results table); 0.9 only excludes a
+    # near-degenerate second state
+    assert lam[1].real < 0.9
 
 
 @pytest.mark.parametrize("mass", [0.3, 0.5, 0.7])
@@ -75,7 +78,10 @@ def test_offshell_axial_ward_identity_hard_cutoff_shrinks_with_the_cutoff(light_
         sol = light_hard if lam2 == 1e5 else gap.solve(k, M_LIGHT, ZETA)
         bs = bse.BoundState(k, channels.get("pseudoscalar"), bse.BSEGrid(), sol)
         devs.append(identities.av_wti_offshell(bs, 0.3)["max_relative_deviation"])
+    # measured 1.7–2.2e-2 at Λ² = 1e5 GeV² (README); the band is a factor ~3 each side
     assert 0.005 < devs[0] < 0.05
+    # a surface term ∝ 1/ln Λ² gives ln(1e5)/ln(1e7) = 0.71 (derived); 0.85 leaves room for
+    # the subleading terms while excluding no shrinkage
     assert devs[1] < 0.85 * devs[0]
 
 

@@ -68,7 +68,6 @@ def test_shifted_propagator_is_covariant(shifted_ti, mass):
     sel = _all(sp)
     assert np.max(np.abs(sp.A_transverse / sp.A_longitudinal - 1)[:, sel]) < 1e-6
     assert np.max(np.abs(sp.tensor_part)) < 1e-12 * np.max(np.abs(sp.X))
-    assert sp.residuals[-1] < 1e-10
 
 
 def test_equal_x2_from_different_masses_gives_equal_dressing(shifted_ti_fine):
@@ -112,6 +111,8 @@ def test_direct_continuation_departs_when_g_of_zero_is_finite(shifted_ti, light_
     sp = shifted_ti.solve(0.3, 0.5)
     a, _ = _direct(light_ti, sp)
     dev = np.max(np.abs(sp.A_transverse / a - 1)[:, _low(sp)])
+    # measured 3e-4 (README, "Continuation"); the band, a decade each side, only
+    # excludes agreement at the quadrature level (≤ 1e-6, the tame model) and an O(1) error
     assert 5e-5 < dev < 5e-3
 
 
@@ -138,6 +139,8 @@ def test_hard_cutoff_surface_term_matches_the_closed_form(tame_hard):
     k, sol = tame_hard
     solver = routed.ShiftedSolver(sol, _grid(k), subtract_boundary=False)
     delta = routed.boundary_delta(sol)
+    # measured δ ≈ 0.016 at Λ² = 1e5 GeV² (README); the band only excludes a vanished or
+    # an order-one surface term -- its value is checked against the loop below, to 1e-3
     assert 0.005 < delta < 0.05
     mass, eta = 0.2, 0.5
     x2 = routed.shifted_x2(solver.q2, solver.z, mass, eta)

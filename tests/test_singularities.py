@@ -5,6 +5,7 @@ parabola of a bound state with η = 1/2 reaches it at M = 2m (threshold; analyti
 geometry of the parabola q² − η²M² + 2iηMqz (definition).
 """
 
+import numpy as np
 import pytest
 
 from conftest import ZETA
@@ -23,8 +24,11 @@ def test_free_quark_threshold_is_twice_the_mass():
 
 def test_maris_tandy_singularity_is_a_zero_on_the_boundary_parabola(light_hard):
     m_max, sing = singularities.max_bound_state_mass(light_hard, 0.5)
-    assert sing is not None and sing.residual < 1e-8
+    assert sing is not None
     s0 = sing.s_gev2
+    # re-evaluated, not the finder's own residual: the self-energy integrated afresh at s0
+    a, b = light_hard.dressing(np.array([s0]))
+    assert abs(s0 * a[0] ** 2 + b[0] ** 2) < 1e-8 * (abs(s0 * a[0] ** 2) + abs(b[0]) ** 2)
     assert s0.imag > 0 and s0.real < 0                    # complex-conjugate pair, timelike side
     eta = 0.5
     y = (eta * m_max) ** 2
@@ -51,6 +55,8 @@ def test_shifted_continuation_confirms_the_maris_tandy_zero(light_ti):
     unique; the direct one differs from it only by a few 1e-4 here)."""
     _, sing = singularities.max_bound_state_mass(light_ti, 0.5)
     check = singularities.check_with_shifted(light_ti, sing, 0.5)
+    # measured |D|/norm: 0.02–0.03 at this zero, 0.44 at the Qin–Chang artefact (README,
+    # Limitations); 0.1 (pipeline.SINGULARITY_CONFIRMED) separates the two by a factor ≥ 3
     assert check is not None and check < 0.1
 
 
@@ -63,6 +69,28 @@ def test_shifted_solve_converges_from_the_taylor_start_beyond_m_max(light_ti):
 
     m_max, _ = singularities.max_bound_state_mass(light_ti, 0.5)
     lg = ladder.LadderGrid(bse.BSEGrid().radial(light_ti.kernel.q2_max), 16)
-    sp = routed.ShiftedSolver(light_ti, lg).solve(1.03 * m_max, 0.5)
+    solver = routed.ShiftedSolver(light_ti, lg)
+    sp = solver.solve(1.03 * m_max, 0.5)
     assert sp.residuals[0] > 0.1            # the start really is poor
+    # the claim is the solver's convergence, so its own residual is the measure here;
+    # which solution it converges to is tested below M_max (next test): beyond it the
+    # solution depends on the start (measured: 6% in S⁻¹ at low q² between the Taylor
+    # start and an extrapolation from 0.97 and 0.99 M_max) -- the continuation is not
+    # unique once the parabola encloses the zero
     assert sp.residuals[-1] < 1e-10 and sp.iterations < 30
+
+
+def test_below_m_max_the_shifted_solution_does_not_depend_on_the_start(light_ti):
+    """Uniqueness of the analytic continuation: below M_max the covariant Taylor start
+    and an extrapolation from solutions at smaller masses reach the same S⁻¹ (an
+    independent check of convergence, not the solver's residual)."""
+    from rlmeson import bse, ladder, routed
+
+    m_max, _ = singularities.max_bound_state_mass(light_ti, 0.5)
+    lg = ladder.LadderGrid(bse.BSEGrid().radial(light_ti.kernel.q2_max), 16)
+    solver = routed.ShiftedSolver(light_ti, lg)
+    mass = 0.97 * m_max
+    taylor = solver.solve(mass, 0.5)
+    ref = solver.solve(mass, 0.5, guess=[solver.solve(f * m_max, 0.5) for f in (0.9, 0.94)])
+    assert ref.residuals[0] != taylor.residuals[0]      # (it really started elsewhere)
+    assert np.max(np.abs(taylor.X - ref.X)) < 1e-8 * np.max(np.abs(ref.X))
