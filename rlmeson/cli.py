@@ -106,6 +106,9 @@ def cmd_quark(args) -> int:
                          + ", ".join(f.name for f in cfg.flavours))
     if args.plot:
         _check_file_destination("--plot", Path(args.plot))
+        from .store import remove_stale_temporaries
+
+        remove_stale_temporaries(Path(args.plot).absolute().parent)  # a killed run's half-written figure
     _echo(cfg, config, quiet=False)
     _check_store(cfg, args.no_cache)
     from . import pipeline, plots  # the numerics (JAX) only after the input is checked
@@ -385,6 +388,10 @@ def _check_file_destination(option: str, path: Path) -> None:
         raise UsageError(f"{option} {path}: {parent} is not a directory")
     if not os.access(parent, os.W_OK | os.X_OK):
         raise UsageError(f"{option} {path}: {parent} cannot be written")
+    try:
+        path.absolute().parent.mkdir(parents=True, exist_ok=True)
+    except OSError as e:
+        raise UsageError(f"{option} {path}: cannot write there ({e.strerror or type(e).__name__})") from None
 
 
 _STAGED: list[Path] = []   # fresh run directories not yet moved into place (removed on failure)

@@ -164,7 +164,8 @@ class Config:
         for f in self.flavours:
             if f.name == name:
                 return f
-        raise ConfigError("quarks", name, "one of the defined flavours " + ", ".join(f.name for f in self.flavours))
+        raise ConfigError("flavour", name, "one of the flavours defined under [quarks]: "
+                          + ", ".join(f.name for f in self.flavours))
 
     def _setup(self) -> dict:
         return {"interaction": {"model": self.interaction.model, "params": self.interaction.param_dict()},

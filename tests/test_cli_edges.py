@@ -291,3 +291,12 @@ def test_terminated_run_leaves_no_temporary_output(tmp_path):
     _, err = proc.communicate(timeout=120)
     assert staged and proc.returncode == 1 and "rlmeson: interrupted" in err, "".join(seen) + err
     assert not (tmp_path / "o").exists() and not any(p.exists() for p in staged)
+
+
+@pytest.mark.parametrize("where", ["directory", "inside-file", "proc"])
+def test_unusable_plot_destination_is_refused_before_any_work(tmp_path, where):
+    (tmp_path / "afile").write_text("x")
+    plot = {"directory": tmp_path, "inside-file": tmp_path / "afile" / "m.png",
+            "proc": Path("/proc/rlmeson-figures/m.png")}[where]
+    rc, err, jax = _main_without_jax(["quark", _write(tmp_path, LIGHT.format(mass=0.005)), "--plot", plot], tmp_path)
+    assert rc == 2 and _one_line(err) and err.startswith(f"rlmeson: --plot {plot}") and not jax
