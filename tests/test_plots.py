@@ -147,3 +147,19 @@ def test_quark_plot_follows_the_suffix_and_rejects_unknown_ones(tmp_path):
     assert (tmp_path / "m.pdf").read_bytes()[:4] == SIGNATURE["pdf"]
     code, _, err = _main(["quark", cfg, "--plot", tmp_path / "m.jpg"])
     assert code == 2 and ".png" in err and not (tmp_path / "m.jpg").exists()
+
+
+def test_spectrum_points_are_the_leading_eigenvalues_of_the_dense_matrix(mt_hard, light_hard):
+    """The warm-started ARPACK solves of the figure's spectrum find the three eigenvalues
+    with the largest real parts (reference: scipy.linalg.eig of the dense BSE matrix on a
+    tiny grid; ARPACK tolerance 1e-7)."""
+    from rlmeson import bse, channels, pipeline
+
+    tiny = bse.BSEGrid(order=4, n_z=4, widths=(12.0, 4.8, 10.0, 10.0))
+    bs = bse.BoundState(mt_hard, channels.get("vector"), tiny, light_hard, max_mass=1.0)
+    mass = 0.7
+    vals, vecs = bs.eigen(mass, k=3)
+    masses, lam = pipeline._spectrum(bs, mass, 1.0, mass, vals, vecs)
+    assert len(masses) == 1 + len(pipeline.SPECTRUM_FRACTIONS) + 1
+    ref = bs.eigen_dense(masses[0])[0][:3]      # P² = 0: the far end of the warm-start chain
+    assert masses[0] == 0.0 and np.allclose(lam[0], ref, atol=1e-6), (lam[0], ref)
