@@ -413,6 +413,10 @@ def _stage(final: Path, option: str) -> Path:
     ``final`` under a temporary name; leftovers of killed runs there are removed."""
     from . import store
 
+    here = Path.cwd().resolve()
+    if final.exists() and (final.resolve() == here or final.resolve() in here.parents):
+        raise UsageError(f"{option} {final}: is the working directory or contains it (a run replaces its "
+                         "output directory whole); choose another")
     if final.is_symlink() or final.exists():
         if not final.is_dir():
             raise UsageError(f"{option} {final}: exists and is not a directory")

@@ -97,13 +97,14 @@ def test_bad_meson_is_named_by_its_name_or_counted_from_one(tmp_path):
 # ----------------------------------------------------------------------------------------
 # Item 7, checks after the work: --out and the cache location are checked first
 
-@pytest.mark.parametrize("where", ["file", "inside-file", "proc", "foreign"])
+@pytest.mark.parametrize("where", ["file", "inside-file", "proc", "foreign", "working-directory"])
 def test_unusable_out_is_refused_before_any_work(tmp_path, where):
     (tmp_path / "afile").write_text("x")
     (tmp_path / "notes").mkdir()
     (tmp_path / "notes" / "mine.txt").write_text("keep me")
+    (tmp_path / "summary.json").write_text('{"package": "rlmeson"}')     # even if it looks like a run
     out = {"file": tmp_path / "afile", "inside-file": tmp_path / "afile" / "run",
-           "proc": Path("/proc/rlmeson-run"), "foreign": tmp_path / "notes"}[where]
+           "proc": Path("/proc/rlmeson-run"), "foreign": tmp_path / "notes", "working-directory": Path(".")}[where]
     text = LIGHT.format(mass=0.005)
     rc, err, jax = _main_without_jax(["run", _write(tmp_path, text), "--out", out], tmp_path)
     assert rc == 2 and _one_line(err) and err.startswith(f"rlmeson: --out {out}") and not jax
