@@ -728,7 +728,16 @@ def run(cfg: Config, store: Store | None = None, progress: Progress = _quiet) ->
     t0 = time.perf_counter()
     needed = [f.name for f in cfg.flavours]
     quarks = {n: solve_quark(cfg, n, store, progress) for n in needed}
-    mesons = [solve_meson(cfg, m, quarks, store, progress) for m in cfg.mesons]
+    mesons = []
+    for i, m in enumerate(cfg.mesons):
+        try:
+            mesons.append(solve_meson(cfg, m, quarks, store, progress))
+        except (ConfigError, KeyboardInterrupt):
+            raise
+        except Exception as e:  # say which meson could not be computed
+            if e.args and isinstance(e.args[0], str):
+                e.args = (f"{meson_label(i, m.name)}: {e.args[0]}", *e.args[1:])
+            raise
     return RunResult(config=cfg, quarks=quarks, mesons=mesons, seconds=time.perf_counter() - t0)
 
 

@@ -149,4 +149,5 @@ def test_no_bound_state_below_m_max_is_a_one_line_failure(tmp_path, capsys, monk
     code, out, err = _run(["run", _write(tmp_path, text), "--out", tmp_path / "o", "--quiet"], capsys)
     assert code == 1 and err.count("\n") == 1
     assert "largest λ reached" in err and "M_max" in err and "nan" not in err.lower()
+    assert err.startswith('rlmeson: NoBoundState: mesons["v"]: ')      # which meson, by name
     assert not (tmp_path / "o" / "summary.json").exists()
