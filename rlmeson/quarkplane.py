@@ -28,108 +28,24 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from .gap import GapSolution
+from . import rational
+from .rational import Rational, aaa  # noqa: F401  (re-exported: the fit used here)
 
 #: Default half-width of the approximant's window in |p²| (GeV²): where the dynamical
 #: mass is generated and the nearest singularities lie; beyond it the functions are
 #: slow logarithms and the node interpolation is the representation.
 WINDOW_GEV2 = 4.0
-#: Relative tolerance of the AAA fit (against the largest |f| in the window); the shifted
-#: samples are accurate to about 1e-7 there (covariance residual), so a tighter tolerance
-#: only fits noise (and creates spurious pole–zero pairs).
-AAA_RTOL = 1e-10
-AAA_MAX_TERMS = 50
+#: The AAA fit: relative tolerance against the largest |f| in the window and the most
+#: support points.  The samples are accurate to about 1e-7 (covariance residual) and the
+#: fit stops at AAA_MAX_TERMS before it can chase their noise (measured: held-out errors
+#: the same with 50 and 100 terms, and 5× faster).
+AAA_RTOL = rational.AAA_RTOL
+AAA_MAX_TERMS = rational.AAA_MAX_TERMS
 #: The fit uses samples out to FIT_MARGIN × the window; errors are quoted inside it.
 FIT_MARGIN = 2.0
 #: |D|/(|s||A|² + |B|²) below which a zero of the approximants' D is confirmed by the
 #: shifted samples (the same criterion as the direct-continuation check).
 CONFIRMED = 0.1
-
-
-# ----------------------------------------------------------------------------------------
-# Rational functions in barycentric form
-
-@dataclass(frozen=True)
-class Rational:
-    """r(s) = Σ_j w_j f_j/(s − s_j) / Σ_j w_j/(s − s_j) (exact at the support points)."""
-
-    support: np.ndarray   # s_j (complex)
-    values: np.ndarray    # f_j = r(s_j)
-    weights: np.ndarray   # w_j
-
-    def __call__(self, s) -> np.ndarray:
-        s = np.asarray(s, dtype=complex)
-        flat = s.ravel()
-        out = np.empty(flat.shape, complex)
-        wf = self.weights * self.values
-        for i in range(0, flat.size, 32768):          # bounded memory for many points
-            d = flat[i:i + 32768, None] - self.support[None, :]
-            with np.errstate(divide="ignore", invalid="ignore"):
-                c = 1.0 / d
-                r = (c @ wf) / (c @ self.weights)
-            hit = ~np.isfinite(r)                       # at a support point: its value
-            if hit.any():
-                r[hit] = self.values[np.argmin(np.abs(d[hit]), axis=1)]
-            out[i:i + 32768] = r
-        return out.reshape(s.shape)
-
-    def derivative(self, s, h: float = 1e-6) -> np.ndarray:
-        """dr/ds by a complex central difference (r is analytic away from its poles)."""
-        s = np.asarray(s, dtype=complex)
-        step = h * np.maximum(np.abs(s), 1.0)
-        return (self(s + step) - self(s - step)) / (2.0 * step)
-
-    def poles(self) -> np.ndarray:
-        """Zeros of the denominator Σ w_j/(s − s_j): a generalised eigenvalue problem."""
-        import scipy.linalg as sla
-
-        m = self.support.size
-        a = np.zeros((m + 1, m + 1), dtype=complex)
-        a[0, 1:] = self.weights
-        a[1:, 0] = 1.0
-        a[1:, 1:] = np.diag(self.support)
-        b = np.eye(m + 1, dtype=complex)
-        b[0, 0] = 0.0
-        ev = sla.eigvals(a, b)
-        return ev[np.isfinite(ev)]
-
-
-def aaa(points, values, rtol: float = AAA_RTOL, max_terms: int = AAA_MAX_TERMS) -> Rational:
-    """The AAA algorithm (Nakatsukasa, Sète & Trefethen 2018): greedy choice of support
-    points where the current approximant is worst, weights from the smallest singular
-    vector of the Loewner matrix on the remaining points; stops when the error on the
-    data is below ``rtol`` × max |f| or at ``max_terms`` support points.
-
-    The same algorithm as ``scipy.interpolate.AAA`` (the tests compare the two), written
-    out here to take the thin SVD: scipy's full one costs O(N²) per step, 10–20 s for
-    the ~400 points of a region instead of 0.1 s."""
-    import scipy.linalg as sla
-
-    z = np.asarray(points, complex).ravel()
-    f = np.asarray(values, complex).ravel()
-    free = np.ones(z.size, bool)
-    tol = rtol * np.max(np.abs(f))
-    r = np.full(f.shape, np.mean(f))
-    cols = []
-    idx: list[int] = []
-    w = np.ones(1, complex)
-    for _ in range(min(max_terms, z.size - 1)):
-        j = int(np.argmax(np.where(free, np.abs(f - r), -1.0)))
-        idx.append(j)
-        free[j] = False
-        with np.errstate(divide="ignore", invalid="ignore"):
-            cols.append(1.0 / (z - z[j]))
-        c = np.stack(cols, axis=1)                         # Cauchy matrix (N, m)
-        fs = f[idx]
-        with np.errstate(invalid="ignore"):
-            loewner = (f[:, None] - fs[None, :]) * c
-        _, _, vh = sla.svd(loewner[free], full_matrices=False, check_finite=False)
-        w = vh[-1].conj()
-        num, den = c[free] @ (w * fs), c[free] @ w
-        r = f.copy()
-        r[free] = num / den
-        if np.max(np.abs(f - r)) <= tol:
-            break
-    return Rational(support=z[idx].copy(), values=f[idx].copy(), weights=np.asarray(w, complex))
 
 
 # ----------------------------------------------------------------------------------------
@@ -251,7 +167,8 @@ class QuarkPlane:
 
     def D(self, s):
         s = np.asarray(s, dtype=complex)
-        return s * self.A(s) ** 2 + self.B(s) ** 2
+        a, b = rational.evaluate([self.A, self.B], s)
+        return s * a * a + b * b
 
     def nearest(self, eta: float = 0.5) -> Singularity | None:
         conf = [x for x in self.singularities if x.confirmed]
@@ -296,8 +213,10 @@ def build(sol: GapSolution, samples: RegionSamples, window_gev2: float = WINDOW_
     ra, rb = np.asarray(ra, complex), np.asarray(rb, complex)
     n = real.size
     fit_pts = np.concatenate([pts[mask], real])
-    A = aaa(fit_pts, np.concatenate([a_s[mask], ra[:n]]), rtol, max_terms)
-    B = aaa(fit_pts, np.concatenate([b_s[mask], rb[:n]]), rtol, max_terms)
+    # one set of support points and weights for A and B (set-valued AAA): half the cost
+    # to evaluate, and the approximants' poles are common to both
+    A, B = aaa(fit_pts, [np.concatenate([a_s[mask], ra[:n]]), np.concatenate([b_s[mask], rb[:n]])],
+               rtol, max_terms)
 
     def err(f, s, v):
         return float(np.max(np.abs(f(s) - v) / np.abs(v))) if v.size else 0.0

@@ -22,7 +22,7 @@ from pathlib import Path
 import numpy as np
 
 from . import quadrature as qd
-from .quarkplane import Rational
+from .rational import Rational, evaluate
 
 
 def _open(path):
@@ -122,8 +122,7 @@ class Propagator:
         if cplx.any():
             near = cplx & (np.abs(s) <= self.window_gev2)
             if near.any():
-                a[near] = self.approximants["A"](s[near])
-                b[near] = self.approximants["B"](s[near])
+                a[near], b[near] = evaluate([self.approximants["A"], self.approximants["B"]], s[near])
             far = cplx & ~near
             if far.any():
                 a[far], b[far] = self._interpolate_region(s[far])
@@ -131,16 +130,24 @@ class Propagator:
         return a.reshape(shape), b.reshape(shape)
 
     def _interpolate_region(self, s):
+        """A, B at complex s by the region nodes: Chebyshev-U in z, Lagrange in ln q²
+        (both functions at once, in chunks of bounded memory)."""
         q2, z = self._region_coordinates(s)
-        n = self._rz.size
-        _, w = qd.chebyshev_u_nodes(n)
-        u_nodes = qd.chebyshev_u(n - 1, self._rz)
-        uz = qd.chebyshev_u(n - 1, z)
-        out = []
-        for f in (self._rA, self._rB):
-            mom = (2.0 / np.pi) * np.einsum("k,km,kq->mq", w, u_nodes, f)
-            rad = self._rradial.interpolate(mom, np.log(q2))
-            out.append(np.einsum("pm,mp->p", uz, rad))
+        if not hasattr(self, "_region_moments"):
+            n = self._rz.size
+            _, w = qd.chebyshev_u_nodes(n)
+            u_nodes = qd.chebyshev_u(n - 1, self._rz)
+            mom = (2.0 / np.pi) * np.einsum("k,km,fkq->qfm", w, u_nodes, np.stack([self._rA, self._rB]))
+            self._region_moments = mom                       # (q, 2, m)
+        mom = self._region_moments
+        n = mom.shape[-1]
+        out = np.empty((2, s.size), complex)
+        for i in range(0, s.size, 16384):
+            sl = slice(i, i + 16384)
+            idx, lag = self._rradial.interpolation(np.log(q2[sl]))          # (P, order)
+            radial = np.einsum("pk,pkfm->pfm", lag, mom[idx])                # (P, 2, m)
+            uz = qd.chebyshev_u(n - 1, z[sl])                               # (P, m)
+            out[:, sl] = np.einsum("pm,pfm->fp", uz, radial)
         return out[0], out[1]
 
     def A(self, p2):
