@@ -121,6 +121,13 @@ def _region_variables(plane) -> dict:
                             f"approximant of {f}"))
         out.update(_complex(f"aaa_{f}_values", dim, r.values, units, f"values f_j = {f}(s_j)"))
         out.update(_complex(f"aaa_{f}_weights", dim, r.weights, "1", "barycentric weights w_j"))
+    poles = plane.A.poles()
+    poles = poles[np.argsort(np.abs(poles))]
+    out.update(_complex("aaa_poles", ("aaa_pole",), poles, "GeV2", "poles of the approximants of A and B (one "
+                        "support set, so common to both; not singularities of S, which are zeros of p^2 A^2 + B^2)"))
+    for f, r, units in (("A", plane.A, "GeV2"), ("B", plane.B, "GeV3")):
+        out.update(_complex(f"aaa_{f}_residues", ("aaa_pole",), r.residues(poles), units,
+                            f"residues of the approximant of {f} at its poles"))
     sings = list(plane.singularities)
     dim = ("singularity",)
     out.update(_complex("singularity_p2", dim, [x.s_gev2 for x in sings], "GeV2",

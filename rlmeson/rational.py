@@ -30,6 +30,12 @@ class Rational:
         step = h * np.maximum(np.abs(s), 1.0)
         return (self(s + step) - self(s - step)) / (2.0 * step)
 
+    def residues(self, poles) -> np.ndarray:
+        """Residues at simple poles p: N(p)/D'(p) of the barycentric numerator and
+        denominator (D' = −Σ w_j/(p − s_j)²)."""
+        d = np.asarray(poles, complex)[:, None] - self.support[None, :]
+        return np.sum(self.weights * self.values / d, axis=1) / -np.sum(self.weights / d**2, axis=1)
+
     def poles(self) -> np.ndarray:
         """Zeros of the denominator Σ w_j/(s − s_j): a generalised eigenvalue problem."""
         import scipy.linalg as sla

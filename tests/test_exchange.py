@@ -222,3 +222,24 @@ def test_examples_read_without_the_package(exported, script):
     val = complex(line.split("=", 1)[1].replace(" i", "j").replace(" ", "")) if "i" in line.split("=", 1)[1] \
         else complex(line.split("=", 1)[1].strip())
     assert abs(val - a) < 1e-10 * abs(a)
+
+
+def test_export_from_a_run_directory_matches_the_run(figure_run, tmp_path):
+    """SOURCE a run directory: the config is read back from results.h5, the mesons come
+    from the store, and the exported amplitude and mass are the run's own."""
+    from rlmeson import cli
+
+    run_dir, _ = figure_run
+    code = cli.main(["export", str(run_dir), "--what", "amplitude", "--format", "hdf5", "--out",
+                     str(tmp_path), "--quiet"])
+    assert code == 0
+    summary = json.loads((run_dir / "summary.json").read_text())
+    with h5py.File(run_dir / "results.h5", "r") as h:
+        for m in summary["mesons"]:
+            a = readers.open_amplitude(tmp_path / f"amplitude_{m['name']}.h5")
+            assert a.mass_gev == m["mass_gev"]
+            assert a.attrs["decay_constant_gev"] == m["decay_constant_gev"]
+            assert a.attrs["config_hash"] == summary["config_hash"]
+            stored = h[f"mesons/{m['name']}/amplitude_re"][()] + 1j * h[f"mesons/{m['name']}/amplitude_im"][()]
+            qq, zz = np.meshgrid(a.q2, a.z)
+            assert np.allclose(a(qq, zz), stored, rtol=1e-9, atol=1e-12 * np.abs(stored).max())
