@@ -86,6 +86,7 @@ def _progress(quiet: bool):
     t0 = time.perf_counter()
 
     def say(msg: str) -> None:
+        _check_terminated()  # a SIGTERM whose exception was swallowed (see _terminate)
         if not quiet:
             print(f"[{time.perf_counter() - t0:7.1f} s] {msg}", file=sys.stderr, flush=True)
 
@@ -183,6 +184,7 @@ def cmd_run(args) -> int:
     # the figures are drawn from results.h5, as `rlmeson plot` redraws them
     summ["figures"] = [f.name for f in plots.draw_runs([plots.read_run(out / "results.h5")], out)]
     atomic_write_text(out / "summary.json", json.dumps(summ, indent=2, allow_nan=False) + "\n")
+    _check_terminated()
     _move_into_place(out, final)
     print(_table(result))
     print(f"\noutputs in {final}/ (summary.json, results.h5, figures, netCDF and CSV exports)")
@@ -470,8 +472,21 @@ def _one_line_warning(message, category, filename, lineno, file=None, line=None)
     print(f"rlmeson: warning: {text}", file=file or sys.stderr, flush=True)
 
 
+_TERMINATED: list[int] = []
+
+
 def _terminate(signum, frame):
+    """SIGTERM: stop like Ctrl-C.  The exception can be raised inside a callback that
+    swallows it (JAX's garbage-collection hook, while JAX is imported), so the signal is
+    also recorded and checked again at every progress step and before the output is
+    moved into place."""
+    _TERMINATED.append(signum)
     raise KeyboardInterrupt
+
+
+def _check_terminated() -> None:
+    if _TERMINATED:
+        raise KeyboardInterrupt
 
 
 def main(argv=None) -> int:
@@ -491,6 +506,7 @@ def main(argv=None) -> int:
             return _main(argv)
     finally:
         _discard_staged()
+        _TERMINATED.clear()
         if previous is not None:
             signal.signal(signal.SIGTERM, previous)
 
