@@ -626,4 +626,12 @@ def plausibility_warnings(cfg: Config) -> list[str]:
                         out.append(f"interaction.{k} is left at its default {params[k].default:g} while "
                                    f"{', '.join('interaction.' + s for s in set_)} is set "
                                    f"({params[k].meaning}; both belong to the {group} form of {model})")
+    if cfg.output.error_bar and cfg.mesons:
+        b, k = cfg.bse, cfg.kernel
+        fine = grids.BSEGrid(b.q2_min_gev2, tuple(b.panel_widths), b.order, b.z_points, b.angular_points)
+        coarse = fine.coarser()
+        q2_max = k.cutoff_gev2 if k.regularisation == kernel.HARD_CUTOFF else k.grid_end_gev2
+        if coarse.n_z == fine.n_z and coarse.radial(q2_max).edges == fine.radial(q2_max).edges:
+            out.append("output.error_bar = true, but numerics.bse is so coarse already (panel_widths, z_points) "
+                       "that the second grid is the same grid: the error bars would be 0")
     return out

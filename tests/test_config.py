@@ -494,3 +494,15 @@ def test_bad_user_interaction_is_one_line_naming_the_model_key(func, says):
         cfg.parse(MINIMAL + f'[interaction]\nmodel = "user_models:{func}"\nwidth = 1\n')
     msg = str(e.value)
     assert e.value.key == "interaction.model" and says in msg and "\n" not in msg
+
+
+def test_error_bar_on_a_grid_that_cannot_be_coarsened_warns():
+    """The second grid has panels 1.5 times wider and two fewer z points (at least 4);
+    with panels as wide as the zones and 4 z points it is the same grid (measured: an
+    'error' of 1e-14 on m_π), so the error bar is meaningless."""
+    meson = '[[mesons]]\nname = "pi"\nchannel = "pseudoscalar"\n'
+    wide = MINIMAL + meson + "[numerics.bse]\nz_points = 4\npanel_widths = [10.0, 10.0, 10.0, 10.0]\n"
+    w = cfg.plausibility_warnings(cfg.parse(wide))
+    assert len(w) == 1 and w[0].startswith("output.error_bar = true")
+    assert cfg.plausibility_warnings(cfg.parse(MINIMAL + meson)) == []
+    assert cfg.plausibility_warnings(cfg.parse(wide + "[output]\nerror_bar = false\n")) == []
