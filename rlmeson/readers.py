@@ -85,10 +85,13 @@ class Propagator:
             z = np.where(q2 > 0, s.imag / (2.0 * m * np.sqrt(np.maximum(q2, 1e-300))), np.inf)
         return q2, z
 
+    def _on_axis(self, s):
+        """Points served by the real-axis solution: real p² from the first node on."""
+        return (s.imag == 0) & (s.real >= self.p2[0])
+
     def _check(self, s):
-        real = s.imag == 0
-        bad_real = real & ((s.real < self.p2[0]) | (s.real > self.p2[-1]))
-        bad = bad_real.copy()
+        real = self._on_axis(s)
+        bad = real & (s.real > self.p2[-1])
         if self.has_region:
             q2, z = self._region_coordinates(s)
             inside = (q2 >= self._rq2[0]) & (q2 <= self._rq2[-1]) & (np.abs(z) <= 1.0)
@@ -113,7 +116,7 @@ class Propagator:
         self._check(s)
         a = np.empty(s.shape, complex)
         b = np.empty(s.shape, complex)
-        real = s.imag == 0
+        real = self._on_axis(s)
         if real.any():
             t = np.log(s.real[real])
             a[real] = self._radial.interpolate(self._real["A"], t)

@@ -122,6 +122,9 @@ def test_reader_refuses_points_outside_the_region(exported):
     with pytest.raises(ValueError, match="outside the exported region"):
         r.A(np.array([1e30]))                          # beyond the real axis
     assert np.isfinite(r.A(np.array([apex + 0.01 + 0.01j]))).all()
+    # the timelike real axis inside the parabola belongs to the region (Schwarz: real there)
+    a = r.A(np.array([apex + 0.02]))
+    assert abs(a.imag) < 1e-6 * abs(a)
     with pytest.raises(ValueError, match="no such file"):
         readers.open_propagator(exported["dir"] / "absent.nc")
     with pytest.raises(ValueError, match="not a propagator file"):
