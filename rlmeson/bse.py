@@ -38,7 +38,7 @@ class BoundState:
     def __init__(self, kernel: Kernel, channel: Channel, grid: BSEGrid, quark1: GapSolution,
                  quark2: GapSolution | None = None, eta: float = 0.5, kernel_operator=None,
                  continuation: str = "shifted", subtract_boundary: bool = True,
-                 max_mass: float = float("inf")):
+                 max_mass: float = float("inf"), quark_operator=None, reflect: bool = True):
         self.kernel = kernel
         self.channel = channel
         self.grid = grid
@@ -62,17 +62,54 @@ class BoundState:
         if continuation not in CONTINUATIONS:
             raise ValueError(f"unknown continuation {continuation!r}")
         self.continuation = continuation
-        self._shifted = None
+        if not 0.0 < self.eta < 1.0:
+            raise ValueError(f"momentum partition eta = {self.eta!r} must lie in (0, 1)")
+        self._lgrid = lgrid
+        self._subtract_boundary = subtract_boundary
+        self._shifted = self._shifted2 = None
+        self._reflect = False
+        self._qop = None
         if continuation == "shifted":
-            if self.quark2 is not self.quark1 or self.eta != 0.5:
-                raise NotImplementedError("shifted continuation: equal flavours and η = 1/2 for now")
+            # flavour 1 at q₊ = q + ηP, flavour 2 at q₋ = q − (1−η)P: each on its own shifted
+            # family, the second as the shift by the negative fraction −(1−η).  For one
+            # flavour at η = 1/2 the second family is the reflection x₄ → −x₄ of the first
+            # (an exact symmetry of the gap equation on a z grid symmetric about 0), so one
+            # solve serves both unless ``reflect`` is False.
             from .channels import QUARK
             from .routed import ShiftedSolver
 
-            qop = ladder.build(kernel, QUARK, lgrid, sign=+1.0)
+            qop = quark_operator if quark_operator is not None else ladder.build(kernel, QUARK, lgrid, sign=+1.0)
+            self._qop = qop
             self._shifted = ShiftedSolver(self.quark1, lgrid, subtract_boundary, operator=qop)
-            self._last = None
+            self._reflect = bool(reflect) and self.quark2 is self.quark1 and self.eta == 0.5
+            if not self._reflect:
+                self._shifted2 = (self._shifted if self.quark2 is self.quark1 else
+                                  ShiftedSolver(self.quark2, lgrid, subtract_boundary, operator=qop))
+            self._last = self._last2 = None
             self._history = []
+            self._history2 = []
+
+    @property
+    def eta2(self) -> float:
+        """The fraction of P carried by the antiquark line: q₋ = q − (1−η)P."""
+        return 1.0 - self.eta
+
+    @property
+    def shifted_residual(self) -> float | None:
+        """The larger final relative residual of the last shifted solves (None: direct)."""
+        res = [s.residuals[-1] for s in (getattr(self, "_last", None), getattr(self, "_last2", None))
+               if s is not None]
+        return max(res) if res else None
+
+    def with_eta(self, eta: float, max_mass: float | None = None) -> "BoundState":
+        """The same problem at another momentum partition, sharing the η-independent
+        ladder operators (the BSE kernel and the shifted gap kernel)."""
+        return BoundState(self.kernel, self.channel, self.grid, self.quark1,
+                          None if self.quark2 is self.quark1 else self.quark2, eta=eta,
+                          kernel_operator=self.ladder, continuation=self.continuation,
+                          subtract_boundary=self._subtract_boundary,
+                          max_mass=self.max_mass if max_mass is None else max_mass,
+                          quark_operator=self._qop)
 
     @property
     def shape(self):
@@ -99,10 +136,18 @@ class BoundState:
             self._history = (self._history + [sol])[-6:]
             cp = sol.coefficients_of_S()
             sp = props.matrices_from_coefficients(cp, self.z)
-            sm = props.matrices_from_coefficients(props.reflected(cp), self.z)
+            if self._reflect:
+                sol2, cm = None, props.reflected(cp)
+            else:
+                near2 = sorted(self._history2, key=lambda g: abs(g.mass_gev - mass))[:2][::-1]
+                sol2 = self._shifted2.solve(mass, -self.eta2, guess=near2)
+                self._last2 = sol2
+                self._history2 = (self._history2 + [sol2])[-6:]
+                cm = sol2.coefficients_of_S()
+            sm = props.matrices_from_coefficients(cm, self.z)
             if len(self._cache) > 16:
                 self._cache.clear()
-            self._cache[key] = (sp, sm, sol, None)
+            self._cache[key] = (sp, sm, sol, sol2)
             return self._cache[key]
         plus2, minus2 = props.shifted_momenta(self.q2, self.z, mass, self.eta)
         if self.quark2 is self.quark1:
