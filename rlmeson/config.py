@@ -108,7 +108,7 @@ class MesonConfig:
     name: str
     channel: str
     quarks: tuple[str, str]
-    eta: float = 0.5
+    eta: float | None = None  # None: chosen from the quarks' singularities (pipeline.meson_eta)
     mass_guess_gev: float | None = None
 
 
@@ -250,7 +250,7 @@ ANY = _Range()
 MASS = _Range(0.0, 10.0, lo_open=False)
 WIDTH = _Range(0.05, 10.0)
 BSE_Q2_MIN = _Range(0.0, 1.0, hi_open=True)
-ETA = _Only(0.5, "only 0.5 is implemented so far")
+ETA = _Range(0.0, 1.0, hi_open=True)  # the momentum fraction of the first quark, strictly between 0 and 1
 # Regularisation scales: the solvers are checked up to these (a gap solve converges to 1e-15
 # at Λ² = 1e12 GeV² and at Λ_R² = 1e10 GeV² with integrals to 1e16 GeV²); beyond them
 # nothing changes physically and the panel count in ln q² only grows.
@@ -455,11 +455,15 @@ def _mesons(top: dict, flavours: tuple[FlavourConfig, ...]) -> tuple[MesonConfig
             raise ConfigError(f"{p}.name", name, "a name not used by an earlier meson")
         seen.add(name)
         p = meson_label(i, name)
+        channel = _take(m, p, "channel", MISSING, _choice, channels.registered())
+        quarks = _take(m, p, "quarks", (names[0], names[0]), _quark_pair, names)
+        eta = _take(m, p, "eta", None, _real, ETA)
         out.append(MesonConfig(
             name=name,
-            channel=_take(m, p, "channel", MISSING, _choice, channels.registered()),
-            quarks=_take(m, p, "quarks", (names[0], names[0]), _quark_pair, names),
-            eta=_take(m, p, "eta", MesonConfig.eta, _real, ETA),
+            channel=channel,
+            quarks=quarks,
+            # equal flavours default to 1/2; unequal ones are left to the pipeline
+            eta=0.5 if eta is None and quarks[0] == quarks[1] else eta,
             mass_guess_gev=_take(m, p, "mass_guess_gev", None, _real, GUESS),
         ))
     return tuple(out)
@@ -515,12 +519,6 @@ def _cross_checks(c: Config) -> None:
         if not k.grid_end_gev2 >= 1e4 * k.regulator_gev2:
             raise ConfigError("kernel.grid_end_gev2", k.grid_end_gev2,
                               f">= 1e4 * kernel.regulator_gev2 = {1e4 * k.regulator_gev2:g} GeV^2")
-    if c.bse.continuation == "shifted":
-        for i, m in enumerate(c.mesons):
-            if m.quarks[0] != m.quarks[1]:
-                raise ConfigError(f"{meson_label(i, m.name)}.quarks", list(m.quarks),
-                                  "two equal flavours with numerics.bse.continuation = 'shifted' "
-                                  "(use 'direct' for unequal ones)")
 
 
 # ----------------------------------------------------------------------------------------
