@@ -389,19 +389,58 @@ class BoundStateCore:
     shifted_residual: float | None
     #: the leading SPECTRUM_K eigenvalues λ_i(P² = −M²) at a few masses: (masses (n,), λ (n, k))
     spectrum: tuple[np.ndarray, np.ndarray] | None = field(default=None, repr=False)
+    #: |M(η₂) − M(η)| and η₂ (``eta_spread``), when computed
+    eta_spread_gev: float | None = None
+    eta_spread_second_eta: float | None = None
 
 
-def _guess(channel: str, quark: QuarkResult, m_max: float) -> float:
+def _singularity_distance(q: QuarkResult) -> float | None:
+    """|Im √s| of a quark's confirmed nearest singularity s (M_max(η) = |Im √s|/η), or None."""
+    if q.singularity_gev2 is None or not q.confirmed:
+        return None
+    return float(abs(np.sqrt(complex(q.singularity_gev2)).imag))
+
+
+def meson_eta(meson: MesonConfig, q1: QuarkResult, q2: QuarkResult) -> tuple[float, str]:
+    """The momentum partition of a meson (flavour 1 at q + ηP, flavour 2 at q − (1−η)P)
+    and how it was chosen: the config's ``eta``; 1/2 for equal flavours; otherwise the η
+    that maximises M_max(η) = min(a₁/η, a₂/(1−η)), a_i = |Im √s_i| of each quark's nearest
+    singularity, i.e. η = a₁/(a₁ + a₂) with M_max = a₁ + a₂; where a singularity is not
+    known (not found or not confirmed), η = M₁(0)/(M₁(0) + M₂(0)), the dressed masses at
+    p² = 0 (the singularity's distance scales roughly with them; current-mass weights
+    would give η ≈ 0.04 for a light–strange pair and waste most of the reach)."""
+    if meson.eta is not None:
+        return float(meson.eta), "set in the config"
+    if meson.quarks[0] == meson.quarks[1]:
+        return 0.5, "equal flavours: eta = 1/2"
+    a1, a2 = _singularity_distance(q1), _singularity_distance(q2)
+    if a1 is not None and a2 is not None:
+        return a1 / (a1 + a2), ("maximises M_max(eta) = min(|Im sqrt s1|/eta, |Im sqrt s2|/(1 - eta)) over the "
+                                "quarks' confirmed nearest singularities s1, s2: eta = a1/(a1 + a2)")
+    m1, m2 = abs(q1.mass_function_at_zero_gev), abs(q2.mass_function_at_zero_gev)
+    return m1 / (m1 + m2), ("a quark's nearest singularity is not known: eta = M1(0)/(M1(0) + M2(0)), "
+                            "weighted by the dressed masses at p^2 = 0")
+
+
+def mass_limit(q1: QuarkResult, q2: QuarkResult, eta: float) -> float:
+    """The largest mass a search at partition η may probe: each quark's search limit
+    (stated for η = 1/2, i.e. 2|Im √s|) scaled to its own fraction, η and 1 − η."""
+    return min(q1.search_limit_gev * (0.5 / eta), q2.search_limit_gev * (0.5 / (1.0 - eta)))
+
+
+def _guess(channel: str, q1: QuarkResult, q2: QuarkResult, m_max: float) -> float:
     if channel == "pseudoscalar":
-        # Gell-Mann–Oakes–Renner-like scaling m_π² ≈ 5 GeV · m (light quarks), capped
-        return min(0.8 * m_max, max(0.05, math.sqrt(5.0 * max(quark.solution.mass_gev, 1e-6))))
-    return min(0.9 * m_max, 2.0 * quark.mass_function_at_zero_gev * 0.8)
+        # Gell-Mann–Oakes–Renner-like scaling M² ≈ 2.5 GeV · (m₁ + m₂) (light quarks), capped
+        msum = q1.solution.mass_gev + q2.solution.mass_gev
+        return min(0.8 * m_max, max(0.05, math.sqrt(2.5 * max(msum, 2e-6))))
+    return min(0.9 * m_max, 0.8 * (q1.mass_function_at_zero_gev + q2.mass_function_at_zero_gev))
 
 
 def check_mass_guess(cfg: Config, meson: MesonConfig, quarks: dict[str, QuarkResult]) -> None:
     """``mass_guess_gev`` must lie below the search limit of its quarks (a ConfigError
     naming the key otherwise); checked before the meson stage looks in the store."""
-    m_max = min(quarks[q].search_limit_gev for q in meson.quarks)
+    q1, q2 = quarks[meson.quarks[0]], quarks[meson.quarks[1]]
+    m_max = mass_limit(q1, q2, meson_eta(meson, q1, q2)[0])
     if meson.mass_guess_gev is not None and meson.mass_guess_gev >= m_max:
         i = cfg.mesons.index(meson) if meson in cfg.mesons else 0
         raise ConfigError(f"{meson_label(i, meson.name)}.mass_guess_gev", meson.mass_guess_gev,
@@ -410,15 +449,18 @@ def check_mass_guess(cfg: Config, meson: MesonConfig, quarks: dict[str, QuarkRes
 
 
 def bound_state(cfg: Config, meson: MesonConfig, quarks: dict[str, QuarkResult],
-                grid: bse.BSEGrid, progress: Progress = _quiet, spectrum: bool = False) -> BoundStateCore:
+                grid: bse.BSEGrid, progress: Progress = _quiet, spectrum: bool = False,
+                eta_spread: bool = False) -> BoundStateCore:
     """Mass, normalised amplitude and observables of one meson on one grid (and, with
-    ``spectrum``, the leading eigenvalues at a few P² for the λ(P²) figure)."""
+    ``spectrum``, the leading eigenvalues at a few P² for the λ(P²) figure; with
+    ``eta_spread``, the mass at a second momentum partition, ``eta_spread``)."""
     kern = kernel_of(cfg)
     q1, q2 = quarks[meson.quarks[0]], quarks[meson.quarks[1]]
     ch = channels.get(meson.channel)
-    m_max = min(q1.search_limit_gev, q2.search_limit_gev)
+    eta = meson_eta(meson, q1, q2)[0]
+    m_max = mass_limit(q1, q2, eta)
     q2sol = q2.solution if q2 is not q1 else None
-    bs = bse.BoundState(kern, ch, grid, q1.solution, q2sol, eta=meson.eta,
+    bs = bse.BoundState(kern, ch, grid, q1.solution, q2sol, eta=eta,
                         continuation=cfg.bse.continuation, max_mass=m_max)
     chiral = q1.solution.chiral and q2.solution.chiral and ch.name == "pseudoscalar"
     goldstone = None
@@ -431,7 +473,7 @@ def bound_state(cfg: Config, meson: MesonConfig, quarks: dict[str, QuarkResult],
         m_eval = observables.CHIRAL_PROBES_GEV[0]
     else:
         check_mass_guess(cfg, meson, quarks)
-        guess = meson.mass_guess_gev or _guess(ch.name, q1, m_max)
+        guess = meson.mass_guess_gev or _guess(ch.name, q1, q2, m_max)
         progress(f"{meson.name}: searching lambda(P^2) = 1 below M_max = {m_max:.4g} GeV")
         sol = search.find_mass(bs, guess, m_max)
         mass, vec, evals = sol.mass_gev, sol.eigenvector, sol.evaluations
@@ -441,11 +483,44 @@ def bound_state(cfg: Config, meson: MesonConfig, quarks: dict[str, QuarkResult],
         m_eval = mass
     vals, vecs = bs.eigen(m_eval, k=SPECTRUM_K if spectrum else 2, v0=vec)
     nxt = float(vals[1].real) if len(vals) > 1 else None
-    shifted = bs._last.residuals[-1] if getattr(bs, "_last", None) is not None else None
+    shifted = bs.shifted_residual
     spec = _spectrum(bs, mass, m_max, m_eval, vals, vecs) if spectrum else None
+    spread = second = None
+    if eta_spread and not chiral:
+        progress(f"{meson.name}: the mass at a second momentum partition (eta spread)")
+        got = eta_spread_of(bs, mass, lambda e: mass_limit(q1, q2, e))
+        if got is not None:
+            second, spread = got
     return BoundStateCore(mass_gev=mass, chiral=chiral, normalised=nrm, next_eigenvalue=nxt,
                           goldstone_residual=goldstone, curve=curve, evaluations=evals,
-                          q2=bs.q2, z=bs.z, shifted_residual=shifted, spectrum=spec)
+                          q2=bs.q2, z=bs.z, shifted_residual=shifted, spectrum=spec,
+                          eta_spread_gev=spread, eta_spread_second_eta=second)
+
+
+#: The second momentum partition of the η spread lies this far from the meson's η (on the
+#: side that leaves the larger M_max), and the mass must stay below ETA_SPREAD_ROOM of it.
+ETA_SPREAD_STEP = 0.1
+ETA_SPREAD_ROOM = 0.95
+#: Relative η spread above which a shifted result is not called validated: the
+#: translation-invariant regularisation gives ≤ 1e-6 on the default grid (tests/test_eta.py).
+ETA_SPREAD_TOLERANCE = 1e-3
+
+
+def eta_spread_of(bs: bse.BoundState, mass: float, limit: Callable[[float], float],
+                  step: float = ETA_SPREAD_STEP) -> tuple[float, float] | None:
+    """(η₂, |M(η₂) − M(η)|): the bound-state mass found again at a second partition
+    η₂ = η ∓ ``step`` (kernels shared with ``bs``; the search starts from ``mass`` with a
+    1% bracket).  Poincaré covariance makes M independent of η, so the spread measures the
+    numerical (and, with a hard cutoff, regularisation) violation of it.  None when neither
+    η ± step leaves the mass below ETA_SPREAD_ROOM × M_max(η₂)."""
+    options = [e for e in (bs.eta - step, bs.eta + step) if 0.0 < e < 1.0]
+    options = [e for e in options if mass < ETA_SPREAD_ROOM * limit(e)]
+    if not options or not mass > 0:
+        return None
+    eta2 = max(options, key=limit)
+    other = bs.with_eta(eta2, max_mass=limit(eta2))
+    m2 = search.find_mass(other, mass, limit(eta2), step=0.01).mass_gev
+    return float(eta2), float(abs(m2 - mass))
 
 
 #: Eigenvalues per point of the λ(P²) spectrum drawn for a meson (the leading one and
@@ -523,23 +598,28 @@ class MesonResult:
     from_cache: bool = False
     continuation: str = "shifted"
     eta: float = 0.5
+    eta_method: str | None = None
 
     @property
     def factor(self) -> float:
         return observables.CONVENTIONS[self.convention]
 
     def route_check(self) -> tuple[bool, list[str]]:
-        """Whether the result came through a route the README calls validated (equal
-        flavours, η = 1/2, shifted continuation), and why not."""
+        """Whether the result came through a route the README calls validated (the shifted
+        continuation, any flavours, 0 < η < 1: tests/test_eta.py), and why not; a mass
+        that moves with η by more than ETA_SPREAD_TOLERANCE is not validated."""
         why = []
-        if self.quarks[0] != self.quarks[1]:
-            why.append("unequal flavours: only the direct continuation is available and it is not "
-                       "validated for them (README, Limitations)")
         if self.continuation != "shifted":
+            if self.quarks[0] != self.quarks[1]:
+                why.append("unequal flavours through the direct continuation, which is not validated for "
+                           "them (README, Limitations)")
             why.append("direct continuation: a cross-check route, not the analytic continuation where "
                        "g(0) != 0 (README, 'Continuation to complex momenta')")
-        if self.eta != 0.5:
-            why.append(f"momentum partition eta = {self.eta:g}: only eta = 1/2 is validated")
+        spread = self.core.eta_spread_gev
+        if spread is not None and self.core.mass_gev > 0 and spread > ETA_SPREAD_TOLERANCE * self.core.mass_gev:
+            why.append(f"the mass moves by {spread / self.core.mass_gev:.1e} (relative) between eta = {self.eta:.4g} "
+                       f"and {self.core.eta_spread_second_eta:.4g}: Poincare covariance violated beyond "
+                       f"{ETA_SPREAD_TOLERANCE:g}")
         return not why, why
 
     def summary(self) -> dict:
@@ -554,8 +634,17 @@ class MesonResult:
             "current_masses_gev": list(self.current_masses_gev),
             "continuation": self.continuation,
             "eta": self.eta,
+            "eta_method": self.eta_method,
+            "eta_spread_gev": self.core.eta_spread_gev,
+            "eta_spread_second_eta": self.core.eta_spread_second_eta,
+            "eta_spread_method": (
+                "|M(eta2) - M(eta)| with eta2 = eta -/+ " f"{ETA_SPREAD_STEP:g}, same grid: zero by Poincare covariance"
+                if self.core.eta_spread_gev is not None else
+                "not computed (by default only for unequal flavours; chiral limit: M = 0)"),
             "validated": ok,
-            "validation_reason": "; ".join(why) if why else "equal flavours, eta = 1/2, shifted continuation",
+            "validation_reason": "; ".join(why) if why else (
+                "shifted continuation, each quark on its own shifted momenta (eta-independence and the "
+                "axial-vector identity tested for unequal flavours)"),
             "mass_gev": c.mass_gev,
             "mass_method": ("chiral limit: M = 0 by Goldstone's theorem (not solved for); "
                             "see goldstone_residual = |lambda(P^2 = 0) - 1|" if c.chiral else
@@ -618,7 +707,8 @@ def _core_to_store(prefix: str, c: BoundStateCore, arrays: dict, attrs: dict) ->
         "norm_phase": [complex(n.norm_phase).real, complex(n.norm_phase).imag],
         "eigenvalue_slope": n.eigenvalue_slope, "decay_constant": n.decay_constant,
         "decay_constant_imag": n.decay_constant_imag, "condensate": n.condensate,
-        "condensate_imag": n.condensate_imag}
+        "condensate_imag": n.condensate_imag,
+        "eta_spread_gev": c.eta_spread_gev, "eta_spread_second_eta": c.eta_spread_second_eta}
 
 
 def _core_from_store(prefix: str, arrays: dict, attrs: dict) -> BoundStateCore:
@@ -639,19 +729,27 @@ def _core_from_store(prefix: str, arrays: dict, attrs: dict) -> BoundStateCore:
     return BoundStateCore(mass_gev=a["mass_gev"], chiral=a["chiral"], normalised=n,
                           next_eigenvalue=a["next_eigenvalue"], goldstone_residual=a["goldstone_residual"],
                           curve=curve, evaluations=a["evaluations"], q2=arrays[f"{prefix}q2"],
-                          z=arrays[f"{prefix}z"], shifted_residual=a["shifted_residual"], spectrum=spec)
+                          z=arrays[f"{prefix}z"], shifted_residual=a["shifted_residual"], spectrum=spec,
+                          eta_spread_gev=a.get("eta_spread_gev"), eta_spread_second_eta=a.get("eta_spread_second_eta"))
 
 
 def solve_meson(cfg: Config, meson: MesonConfig, quarks: dict[str, QuarkResult],
-                store: Store | None = None, progress: Progress = _quiet) -> MesonResult:
-    """One meson on the configured grid, plus (``output.error_bar``) a coarser grid."""
+                store: Store | None = None, progress: Progress = _quiet,
+                eta_spread: bool | None = None) -> MesonResult:
+    """One meson on the configured grid, plus (``output.error_bar``) a coarser grid.
+    ``eta_spread``: also find the mass at a second momentum partition (``eta_spread_of``);
+    None: for unequal flavours only (where covariance is the check that matters; it costs
+    less than the mass search)."""
     t0 = time.perf_counter()
     check_mass_guess(cfg, meson, quarks)  # before the store: a warm cache must not hide it
-    key = stage_key(cfg, cfg.meson_key(meson) + ("e" if cfg.output.error_bar else "n"))
+    if eta_spread is None:
+        eta_spread = meson.quarks[0] != meson.quarks[1]
+    key = stage_key(cfg, cfg.meson_key(meson) + ("e" if cfg.output.error_bar else "n") + ("s" if eta_spread else ""))
     masses = tuple(quarks[q].solution.mass_gev for q in meson.quarks)
+    eta, eta_method = meson_eta(meson, quarks[meson.quarks[0]], quarks[meson.quarks[1]])
     common = dict(name=meson.name, channel=meson.channel, quarks=meson.quarks, key=key,
                   convention=cfg.output.decay_constant_convention, current_masses_gev=masses,
-                  continuation=cfg.bse.continuation, eta=meson.eta)
+                  continuation=cfg.bse.continuation, eta=eta, eta_method=eta_method)
     if store is not None:
         hit = store.get("meson", key)
         if hit is not None and not {"spectrum_mass", "spectrum"} <= set(hit.arrays):
@@ -663,7 +761,7 @@ def solve_meson(cfg: Config, meson: MesonConfig, quarks: dict[str, QuarkResult],
                                seconds=time.perf_counter() - t0, from_cache=True, **common)
     grid = bse_grid_of(cfg)
     progress(f"{meson.name}: building the {meson.channel} kernel and solving")
-    core = bound_state(cfg, meson, quarks, grid, progress, spectrum=True)
+    core = bound_state(cfg, meson, quarks, grid, progress, spectrum=True, eta_spread=eta_spread)
     coarse = None
     if cfg.output.error_bar:
         progress(f"{meson.name}: second, coarser grid for the error estimate")
