@@ -1,0 +1,154 @@
+"""The shifted continuation at any momentum partition η, for unequal flavours: each quark
+on its own shifted momenta, flavour 1 at q + ηP, flavour 2 at q − (1−η)P.
+
+Sources: Poincaré covariance — with a translation-invariant regularisation the BSE
+eigenvalues, hence the mass, do not depend on how P is shared between the quark lines
+(an exact property; checking it is common practice); the reflection x₄ → −x₄ maps the
+family q + P/2 onto q − P/2 (an exact symmetry of the gap equation, used by the η = 1/2
+path for one flavour); f_P M_P² = (m₁ + m₂) ρ_P, exact in rainbow-ladder (Maris, Roberts
+& Tandy, PLB 420 (1998) 267, from memory); M_max(η) = min(|Im √s₁|/η, |Im √s₂|/(1−η))
+from where each quark's momenta q ± … stay clear of its nearest singularity s_i
+(geometry of the parabola x² = q² − η²M² + 2iηM q z, apex −η²M²).
+
+The heavier quark, m(19 GeV) = 0.09 GeV, is a stand-in for the strange quark (not a fit).
+Grids are reduced (6 z nodes, order-6 panels); the numbers quoted were measured on them.
+With the hard cutoff (Λ² = 1e5 GeV², boundary term subtracted) the same unequal-mass
+pseudoscalar moved by 7.8e-7 between η = 0.5 and 0.4 and by 1.8e-6 to 0.3 (measured, not
+tested); its f M² = (m₁ + m₂)ρ residual is 1.66e-2 there, as for the pion (README).
+"""
+
+import dataclasses
+
+import numpy as np
+import pytest
+
+from conftest import ZETA
+from rlmeson import bse, channels, gap, observables, pipeline, search
+
+GRID = bse.BSEGrid(n_z=6, order=6)
+M_HEAVY = 0.09  # GeV at ζ = 19 GeV: a strange-like stand-in
+M_MAX = 1.05    # below the light quark's M_max(1/2) = 1.07 GeV (README) and the heavier one's
+
+
+def _normalised(bs, mass, vec):
+    lead = search.Leading(bs)
+    lam = {}
+    for m in observables.derivative_masses(mass):
+        lead.vec = vec
+        lam[m] = lead(m)
+    return observables.normalise(bs, mass, vec, lam)
+
+
+def _solve(bs, guess, step=0.15):
+    sol = search.find_mass(bs, guess, M_MAX, step=step)
+    return sol.mass_gev, _normalised(bs, sol.mass_gev, sol.eigenvector)
+
+
+@pytest.fixture(scope="module")
+def heavy_ti(mt_ti):
+    return gap.solve(mt_ti, M_HEAVY, ZETA)
+
+
+@pytest.fixture(scope="module")
+def pion_half(mt_ti, light_ti):
+    """The pion at η = 1/2 through the reflected path (one shifted solve per mass)."""
+    bs = bse.BoundState(mt_ti, channels.get("pseudoscalar"), GRID, light_ti)
+    return bs, _solve(bs, 0.137)
+
+
+@pytest.fixture(scope="module")
+def kaonlike(mt_ti, light_ti, heavy_ti):
+    """Light (flavour 1) and heavier (flavour 2) pseudoscalar at η = 1/2."""
+    bs = bse.BoundState(mt_ti, channels.get("pseudoscalar"), GRID, light_ti, heavy_ti, eta=0.5)
+    return bs, _solve(bs, 0.5)
+
+
+def test_general_path_reproduces_the_reflected_pion_at_half(pion_half):
+    """Reflection symmetry: flavour 2 solved on q − P/2 (negative fraction) gives what the
+    reflection of the q + P/2 solve gives.  Measured: mass 2e-10, f 3e-10 (the root
+    finder's tolerance); the shifted propagators themselves agree to 2e-14."""
+    bs, (mass, n) = pion_half
+    general = bse.BoundState(bs.kernel, bs.channel, GRID, bs.quark1, reflect=False,
+                             kernel_operator=bs.ladder, quark_operator=bs._qop)
+    assert bs._reflect and not general._reflect and general._shifted2 is not None
+    m2, n2 = _solve(general, mass, step=0.01)
+    assert abs(m2 / mass - 1) < 1e-8
+    assert abs(n2.decay_constant / n.decay_constant - 1) < 1e-8
+
+
+def test_general_path_reproduces_the_reflected_rho_at_half(mt_ti, light_ti):
+    """As above for the vector channel (eight covariants, three polarisations)."""
+    grid = bse.BSEGrid(n_z=4, order=6)
+    bs = bse.BoundState(mt_ti, channels.get("vector"), grid, light_ti)
+    sol = search.find_mass(bs, 0.73, M_MAX)
+    n = _normalised(bs, sol.mass_gev, sol.eigenvector)
+    general = bse.BoundState(mt_ti, channels.get("vector"), grid, light_ti, reflect=False,
+                             kernel_operator=bs.ladder, quark_operator=bs._qop)
+    sol2 = search.find_mass(general, sol.mass_gev, M_MAX, step=0.01)
+    n2 = _normalised(general, sol2.mass_gev, sol2.eigenvector)
+    assert abs(sol2.mass_gev / sol.mass_gev - 1) < 1e-8
+    assert abs(n2.decay_constant / n.decay_constant - 1) < 1e-8
+
+
+def test_pion_mass_does_not_depend_on_eta(pion_half):
+    """Poincaré covariance, translation-invariant regularisation: η = 0.5 against 0.4
+    (``pipeline.eta_spread_of``, the function behind ``eta_spread_gev``).  The issue asks
+    ≤ 1e-4; measured 1.8e-8, asserted 1e-6."""
+    bs, (mass, _) = pion_half
+    eta2, spread = pipeline.eta_spread_of(bs, mass, lambda e: M_MAX)
+    assert eta2 == pytest.approx(0.4)
+    assert spread / mass < 1e-6
+
+
+def test_unequal_mass_pseudoscalar_does_not_depend_on_eta(kaonlike):
+    """Poincaré covariance with two flavours, each on its own shifted family: η = 0.5
+    against 0.4.  The issue asks ≤ 1e-3; measured 8.7e-7 (0.4), 4.1e-7 (0.6), 2.0e-6
+    (0.3): asserted 1e-5."""
+    bs, (mass, _) = kaonlike
+    eta2, spread = pipeline.eta_spread_of(bs, mass, lambda e: M_MAX)
+    assert eta2 == pytest.approx(0.4)
+    assert spread / mass < 1e-5
+
+
+def test_unequal_mass_axial_identity(kaonlike):
+    """f_P M_P² = (m₁ + m₂) ρ_P for the light–heavier pseudoscalar, translation-invariant
+    regularisation (Maris, Roberts & Tandy 1998).  The issue asks ≤ 1e-3; measured 5.0e-6
+    at η = 0.5 (4.9e-6 at 0.4, 5.6e-6 at 0.6) on this grid: asserted 5e-5."""
+    bs, (mass, n) = kaonlike
+    msum = bs.quark1.mass_gev + bs.quark2.mass_gev
+    lhs = n.decay_constant * mass**2
+    assert abs((lhs - msum * n.condensate) / lhs) < 5e-5
+    assert n.normalisation_agreement < 1e-5  # Nakanishi = canonical; measured 3.6e-7
+
+
+def _quark_result(sol, s_gev2, flavour):
+    """A QuarkResult with a given confirmed nearest singularity (M_max at η = 1/2 from it)."""
+    s = None if s_gev2 is None else complex(s_gev2)
+    m_max = float("inf") if s is None else 2.0 * abs(np.sqrt(s).imag)
+    return pipeline.QuarkResult(flavour=flavour, key=flavour, solution=sol,
+                                mass_function_at_zero_gev=sol.mass_function_at_zero(),
+                                max_bound_state_mass_gev=m_max, singularity_gev2=s,
+                                singularity_check=None if s is None else 0.01,
+                                condensate_cbrt_gev=None, seconds=0.0, from_cache=False)
+
+
+def test_default_eta_maximises_the_accessible_mass(light_ti, heavy_ti):
+    """The default η of unequal flavours maximises M_max(η) = min(a₁/η, a₂/(1−η)) —
+    checked against a brute-force scan; equal flavours get 1/2; without a known
+    singularity the dressed masses M(0) weight it."""
+    q1 = _quark_result(light_ti, -0.198 + 0.319j, "l")   # Maris–Tandy light quark (README)
+    q2 = _quark_result(heavy_ti, -0.30 + 0.52j, "s")     # an illustrative, farther one
+    meson = pipeline.MesonConfig("k", "pseudoscalar", ("l", "s"))
+    eta, how = pipeline.meson_eta(meson, q1, q2)
+    grid = np.linspace(0.01, 0.99, 9801)
+    a1, a2 = (abs(np.sqrt(q.singularity_gev2).imag) for q in (q1, q2))
+    reach = np.minimum(a1 / grid, a2 / (1 - grid))
+    assert abs(eta - grid[np.argmax(reach)]) < 2e-4 and "singularit" in how
+    assert pipeline.mass_limit(q1, q2, eta) == pytest.approx(reach.max(), rel=3e-4)  # the scan's step
+    assert pipeline.mass_limit(q1, q2, eta) > pipeline.mass_limit(q1, q2, 0.5)
+    assert pipeline.meson_eta(dataclasses.replace(meson, quarks=("l", "l")), q1, q1)[0] == 0.5
+    assert pipeline.meson_eta(dataclasses.replace(meson, eta=0.3), q1, q2) == (0.3, "set in the config")
+    unknown = _quark_result(heavy_ti, None, "s")
+    eta_f, how_f = pipeline.meson_eta(meson, q1, unknown)
+    m1, m2 = light_ti.mass_function_at_zero(), heavy_ti.mass_function_at_zero()
+    assert eta_f == pytest.approx(m1 / (m1 + m2)) and "M1(0)" in how_f
