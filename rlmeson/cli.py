@@ -251,10 +251,13 @@ def cmd_export(args) -> int:
     base = _nearest_existing(out)
     if not base.is_dir() or not os.access(base, os.W_OK | os.X_OK):
         raise UsageError(f"--out {out}: {base} cannot be written")
+    try:
+        out.mkdir(parents=True, exist_ok=True)
+    except OSError as e:
+        raise UsageError(f"--out {out}: cannot be created ({e.strerror or type(e).__name__})") from None
     _check_store(cfg, args.no_cache)
     from . import exchange, pipeline  # the numerics (JAX) only after the input is checked
 
-    out.mkdir(parents=True, exist_ok=True)
     store = pipeline.store_of(cfg, not args.no_cache)
     say = _progress(args.quiet)
     names = [args.flavour] if args.flavour else [f.name for f in cfg.flavours]
