@@ -88,10 +88,13 @@ def propagator_matrices(q2, z, mass, eta, plus: DressedPoints, minus: DressedPoi
 
 
 def reflected(coeffs: np.ndarray) -> np.ndarray:
-    """S at −(1−η)P from S at +ηP for η = 1/2: coefficients (s₀, s₁, −s₂, −s₃) at −z.
+    """S at q − cP from S at q + cP (any fraction c): coefficients (s₀, s₁, −s₂, −s₃) at −z.
 
-    The reflection x₄ → −x₄ maps q + P/2 at node (q, z) to q − P/2 at (q, −z) and leaves
-    q_T unchanged; exact for a z grid symmetric about 0.
+    The reflection x₄ → −x₄ maps q + cP at node (q, z) to q − cP at (q, −z) and leaves
+    q_T unchanged; exact for a z grid symmetric about 0.  With one flavour at η = 1/2
+    (c = 1/2) it gives the antiquark's S from the quark's solve; in general the second
+    quark is solved at the fraction −(1−η) directly (``bse.BoundState``), which equals
+    this reflection of a solve at +(1−η) to rounding (tests/test_eta.py).
     """
     out = coeffs[:, ::-1, :].copy()
     out[2] *= -1.0

@@ -10,6 +10,10 @@ an input.  Z₂ and Z₄ m^ζ are those of the real-axis solution.  Solved by Ne
 with GMRES on the exact JAX linearisation, warm-started from the real-axis solution (or
 from a previous mass).
 
+η is any real fraction: the antiquark line of a bound state, q − (1−η)P, is the family
+with η → −(1−η) (equal, to rounding, to the reflection x₄ → −x₄ of the solve at +(1−η);
+``propagators.reflected``).
+
 B.T. is the boundary term that a hard cutoff on the loop momentum leaves when the loop is
 shifted by c = ηP: iγ·c δ with δ = Z₂² 3 C_F g(Λ²) Λ² / (32π² A(Λ²)) (leading order in
 c/Λ).  It is subtracted by default; with the translation-invariant regularisation it is

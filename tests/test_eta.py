@@ -121,6 +121,24 @@ def test_unequal_mass_axial_identity(kaonlike):
     assert n.normalisation_agreement < 1e-5  # Nakanishi = canonical; measured 3.6e-7
 
 
+@pytest.mark.parametrize("fixture", ["light_ti", "light_hard"])
+def test_negative_fraction_is_the_reflection_of_the_positive_one(fixture, request):
+    """The second quark's family q − (1−η)P solved as the shift by −(1−η) equals the
+    reflection x₄ → −x₄ of the solve at +(1−η) (coefficients (s₀, s₁, −s₂, −s₃) at −z),
+    here at η = 0.4, with the hard cutoff's boundary term too.  Measured 2.6e-14 (TI) and
+    2.3e-14 (hard cutoff) relative to S at each radial node: the two solves differ only by
+    rounding, as an exact symmetry of the discretised equation should."""
+    from rlmeson import ladder, propagators, routed
+
+    sol = request.getfixturevalue(fixture)
+    grid = ladder.LadderGrid(GRID.radial(sol.kernel.q2_max), 6)
+    solver = routed.ShiftedSolver(sol, grid)
+    minus = solver.solve(0.5, -0.6).coefficients_of_S()
+    plus = solver.solve(0.5, 0.6).coefficients_of_S()
+    scale = np.max(np.abs(plus), axis=(0, 1))  # per radial node (S falls like 1/q)
+    assert np.max(np.abs(minus - propagators.reflected(plus)) / scale) < 1e-12
+
+
 def _quark_result(sol, s_gev2, flavour):
     """A QuarkResult with a given confirmed nearest singularity (M_max at η = 1/2 from it)."""
     s = None if s_gev2 is None else complex(s_gev2)
@@ -152,3 +170,29 @@ def test_default_eta_maximises_the_accessible_mass(light_ti, heavy_ti):
     eta_f, how_f = pipeline.meson_eta(meson, q1, unknown)
     m1, m2 = light_ti.mass_function_at_zero(), heavy_ti.mass_function_at_zero()
     assert eta_f == pytest.approx(m1 / (m1 + m2)) and "M1(0)" in how_f
+
+
+def test_an_unequal_flavour_result_is_validated_unless_its_mass_moves_with_eta(light_ti):
+    """The summary's ``validated`` for the shifted route with unequal flavours: true with
+    an η spread at the level measured above, false (with the reason) when the mass moves
+    by more than ETA_SPREAD_TOLERANCE; the direct route stays unvalidated."""
+    n = observables.Normalised(mass_gev=0.5, amplitude=np.zeros(1), wave_function=np.zeros(1), norm_nakanishi=1.0,
+                               norm_canonical=1.0, eigenvalue_slope=-1.0, decay_constant=0.1,
+                               decay_constant_imag=0.0, condensate=0.5, condensate_imag=0.0)
+
+    def summary(spread, continuation="shifted"):
+        core = pipeline.BoundStateCore(mass_gev=0.5, chiral=False, normalised=n, next_eigenvalue=0.5,
+                                       goldstone_residual=None, curve=search.EigenCurve(), evaluations=1,
+                                       q2=np.zeros(1), z=np.zeros(1), shifted_residual=None,
+                                       eta_spread_gev=spread, eta_spread_second_eta=None if spread is None else 0.32)
+        return pipeline.MesonResult(name="k", channel="pseudoscalar", quarks=("l", "s"), key="k", core=core,
+                                    coarse=None, convention="92", current_masses_gev=(0.004, 0.09), seconds=0.0,
+                                    continuation=continuation, eta=0.42, eta_method="test").summary()
+
+    good = summary(5e-9)
+    assert good["validated"] is True and good["eta_spread_gev"] == 5e-9 and good["eta_spread_second_eta"] == 0.32
+    bad = summary(0.5 * 2e-3)
+    assert bad["validated"] is False and "moves" in bad["validation_reason"]
+    assert summary(None)["eta_spread_gev"] is None
+    direct = summary(None, "direct")
+    assert direct["validated"] is False and "unequal flavours" in direct["validation_reason"]
