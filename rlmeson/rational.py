@@ -51,7 +51,7 @@ class Rational:
         return ev[np.isfinite(ev)]
 
 
-def evaluate(rationals, s, chunk: int = 32768) -> list[np.ndarray]:
+def evaluate(rationals, s, chunk: int = 16384) -> list[np.ndarray]:
     """Several rational functions with the same support points and weights (``aaa``
     with several value arrays) at the points s: one Cauchy matrix for all of them."""
     s = np.asarray(s, dtype=complex)
@@ -60,7 +60,7 @@ def evaluate(rationals, s, chunk: int = 32768) -> list[np.ndarray]:
     if any(r.support.shape != first.support.shape or not np.array_equal(r.support, first.support)
            or not np.array_equal(r.weights, first.weights) for r in rationals[1:]):
         return [evaluate([r], s, chunk)[0] for r in rationals]
-    wf = np.stack([r.weights * r.values for r in rationals], axis=1)    # (m, k)
+    wf = np.stack([r.weights * r.values for r in rationals] + [first.weights], axis=1)   # (m, k + 1)
     out = np.empty((len(rationals), flat.size), complex)
     for i in range(0, flat.size, chunk):
         d = flat[i:i + chunk, None] - first.support[None, :]
@@ -69,7 +69,8 @@ def evaluate(rationals, s, chunk: int = 32768) -> list[np.ndarray]:
             c = np.empty_like(d)
             c.real = d.real * inv
             c.imag = -d.imag * inv                                       # 1/d
-            r = (c @ wf) / (c @ first.weights)[:, None]                     # (P, k)
+            nd = c @ wf                                                     # numerators, denominator
+            r = nd[:, :-1] / nd[:, -1:]                                     # (P, k)
         hit = ~np.all(np.isfinite(r), axis=1)                               # at a support point
         if hit.any():
             j = np.argmin(np.abs(d[hit]), axis=1)

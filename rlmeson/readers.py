@@ -50,6 +50,36 @@ def _complex(h, name):
     return np.asarray(h[f"{name}_re"][()]) + 1j * np.asarray(h[f"{name}_im"][()])
 
 
+def _lagrange(radial: qd.RadialGrid, t: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Node indices and Lagrange weights (P, order) at points t of a panel grid: the same
+    interpolant as ``RadialGrid.interpolation``, with the barycentric weights of the
+    reference Gauss–Legendre nodes computed once (they differ between panels only by a
+    factor that cancels)."""
+    e = np.asarray(radial.edges)
+    n = radial.order
+    k = np.clip(np.searchsorted(e, t, side="right") - 1, 0, e.size - 2)
+    u = (t - e[k]) / (e[k + 1] - e[k])
+    x, _ = qd.gauss_legendre(n)
+    bw = 1.0 / np.prod(x[:, None] - x[None, :] + np.eye(n), axis=1)
+    d = u[:, None] - x[None, :]
+    hit = d == 0.0
+    with np.errstate(divide="ignore", invalid="ignore"):
+        w = bw / d
+        lag = w / np.sum(w, axis=1, keepdims=True)
+    rows = hit.any(axis=1)
+    lag[rows] = hit[rows]
+    return k[:, None] * n + np.arange(n), lag
+
+
+def _interpolate(radial: qd.RadialGrid, values: np.ndarray, t: np.ndarray, chunk: int = 65536):
+    """values (f, nodes) at points t: (f, P), in chunks of bounded memory."""
+    out = np.empty((values.shape[0], t.size), values.dtype)
+    for i in range(0, t.size, chunk):
+        idx, lag = _lagrange(radial, t[i:i + chunk])
+        out[:, i:i + chunk] = np.einsum("fpk,pk->fp", values[:, idx], lag)
+    return out
+
+
 class Propagator:
     """A dressed quark read from an exchange file (see the module doc)."""
 
@@ -118,9 +148,8 @@ class Propagator:
         b = np.empty(s.shape, complex)
         real = self._on_axis(s)
         if real.any():
-            t = np.log(s.real[real])
-            a[real] = self._radial.interpolate(self._real["A"], t)
-            b[real] = self._radial.interpolate(self._real["B"], t)
+            a[real], b[real] = _interpolate(self._radial, np.stack([self._real["A"], self._real["B"]]),
+                                            np.log(s.real[real]))
         cplx = ~real
         if cplx.any():
             near = cplx & (np.abs(s) <= self.window_gev2)
@@ -147,7 +176,7 @@ class Propagator:
         out = np.empty((2, s.size), complex)
         for i in range(0, s.size, 16384):
             sl = slice(i, i + 16384)
-            idx, lag = self._rradial.interpolation(np.log(q2[sl]))          # (P, order)
+            idx, lag = _lagrange(self._rradial, np.log(q2[sl]))              # (P, order)
             radial = np.einsum("pk,pkfm->pfm", lag, mom[idx])                # (P, 2, m)
             uz = qd.chebyshev_u(n - 1, z[sl])                               # (P, m)
             out[:, sl] = np.einsum("pm,pfm->fp", uz, radial)
