@@ -38,7 +38,8 @@ class BoundState:
     def __init__(self, kernel: Kernel, channel: Channel, grid: BSEGrid, quark1: GapSolution,
                  quark2: GapSolution | None = None, eta: float = 0.5, kernel_operator=None,
                  continuation: str = "shifted", subtract_boundary: bool = True,
-                 max_mass: float = float("inf"), quark_operator=None, reflect: bool = True):
+                 max_mass: float = float("inf"), quark_operator=None, reflect: bool = True,
+                 shifted_tol: float = 1e-11):
         self.kernel = kernel
         self.channel = channel
         self.grid = grid
@@ -66,6 +67,7 @@ class BoundState:
             raise ValueError(f"momentum partition eta = {self.eta!r} must lie in (0, 1)")
         self._lgrid = lgrid
         self._subtract_boundary = subtract_boundary
+        self.shifted_tol = float(shifted_tol)  # relative residual of the shifted gap solves
         self._shifted = self._shifted2 = None
         self._reflect = False
         self._qop = None
@@ -109,7 +111,7 @@ class BoundState:
                           kernel_operator=self.ladder, continuation=self.continuation,
                           subtract_boundary=self._subtract_boundary,
                           max_mass=self.max_mass if max_mass is None else max_mass,
-                          quark_operator=self._qop)
+                          quark_operator=self._qop, shifted_tol=self.shifted_tol)
 
     @property
     def shape(self):
@@ -131,7 +133,7 @@ class BoundState:
             return hit
         if self._shifted is not None:
             near = sorted(self._history, key=lambda g: abs(g.mass_gev - mass))[:2][::-1]
-            sol = self._shifted.solve(mass, self.eta, guess=near)
+            sol = self._shifted.solve(mass, self.eta, guess=near, tol=self.shifted_tol)
             self._last = sol
             self._history = (self._history + [sol])[-6:]
             cp = sol.coefficients_of_S()
@@ -140,7 +142,7 @@ class BoundState:
                 sol2, cm = None, props.reflected(cp)
             else:
                 near2 = sorted(self._history2, key=lambda g: abs(g.mass_gev - mass))[:2][::-1]
-                sol2 = self._shifted2.solve(mass, -self.eta2, guess=near2)
+                sol2 = self._shifted2.solve(mass, -self.eta2, guess=near2, tol=self.shifted_tol)
                 self._last2 = sol2
                 self._history2 = (self._history2 + [sol2])[-6:]
                 cm = sol2.coefficients_of_S()

@@ -409,10 +409,11 @@ def meson_eta(meson: MesonConfig, q1: QuarkResult, q2: QuarkResult) -> tuple[flo
     known (not found or not confirmed), η = M₁(0)/(M₁(0) + M₂(0)), the dressed masses at
     p² = 0 (the singularity's distance scales roughly with them; current-mass weights
     would give η ≈ 0.04 for a light–strange pair and waste most of the reach)."""
+    equal = meson.quarks[0] == meson.quarks[1]
+    if meson.eta is None and equal or equal and meson.eta == 0.5:
+        return 0.5, "equal flavours: eta = 1/2"
     if meson.eta is not None:
         return float(meson.eta), "set in the config"
-    if meson.quarks[0] == meson.quarks[1]:
-        return 0.5, "equal flavours: eta = 1/2"
     a1, a2 = _singularity_distance(q1), _singularity_distance(q2)
     if a1 is not None and a2 is not None:
         return a1 / (a1 + a2), ("maximises M_max(eta) = min(|Im sqrt s1|/eta, |Im sqrt s2|/(1 - eta)) over the "
