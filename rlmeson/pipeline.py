@@ -489,7 +489,15 @@ def bound_state(cfg: Config, meson: MesonConfig, quarks: dict[str, QuarkResult],
     spread = second = None
     if eta_spread and not chiral:
         progress(f"{meson.name}: the mass at a second momentum partition (eta spread)")
-        got = eta_spread_of(bs, mass, lambda e: mass_limit(q1, q2, e))
+        from scipy.sparse.linalg import ArpackNoConvergence
+
+        from .routed import ShiftedNotConverged
+
+        try:
+            got = eta_spread_of(bs, mass, lambda e: mass_limit(q1, q2, e))
+        except (search.NoBoundState, ShiftedNotConverged, ArpackNoConvergence, FloatingPointError) as e:
+            progress(f"{meson.name}: no eta spread: {e}")
+            got = None
         if got is not None:
             second, spread = got
     return BoundStateCore(mass_gev=mass, chiral=chiral, normalised=nrm, next_eigenvalue=nxt,
@@ -641,7 +649,8 @@ class MesonResult:
             "eta_spread_method": (
                 "|M(eta2) - M(eta)| with eta2 = eta -/+ " f"{ETA_SPREAD_STEP:g}, same grid: zero by Poincare covariance"
                 if self.core.eta_spread_gev is not None else
-                "not computed (by default only for unequal flavours; chiral limit: M = 0)"),
+                "not computed: by default only for unequal flavours; none in the chiral limit (M = 0), when "
+                "neither eta -/+ " f"{ETA_SPREAD_STEP:g} leaves the mass below M_max, or when the search there fails"),
             "validated": ok,
             "validation_reason": "; ".join(why) if why else (
                 "shifted continuation, each quark on its own shifted momenta (eta-independence and the "
