@@ -200,7 +200,7 @@ def amplitude_dataset(cfg, meson, radial=None):
         "quantity": "bethe_salpeter_amplitude", "meson": meson.name, "channel": meson.channel, "jpc": ch.jpc,
         "quarks": _json(list(meson.quarks)), "mass_gev": core.mass_gev,
         "decay_constant_gev": summ["decay_constant_gev"], "decay_constant_convention": conv,
-        "eta": 0.5, "frame": "rest frame: P = (0, 0, 0, iM), q = |q| (0, 0, sqrt(1 - z^2), z); quark momentum "
+        "eta": float(getattr(meson, "eta", 0.5)), "frame": "rest frame: P = (0, 0, 0, iM), q = |q| (0, 0, sqrt(1 - z^2), z); quark momentum "
                              "q + eta P, antiquark q - (1 - eta) P",
         "basis": "Gamma(q; P) = sum_i F_i(q^2, z) tau_i(q^, P^) with q_T = q^ - (q^.P^) P^ (not normalised); "
                  "covariant_label names tau_i",

@@ -121,7 +121,8 @@ def _write_meson(g, m, ms, kern, config_hash, version) -> None:
     amp = core.normalised.amplitude * m.factor
     mom = moments(amp, core.z)
     labels = list(channels.get(m.channel).basis_labels)
-    q2 = _dataset(g, "q2", core.q2, "GeV^2", ("q2",), "relative momentum squared q^2 (eta = 1/2)")
+    q2 = _dataset(g, "q2", core.q2, "GeV^2", ("q2",),
+                  f"relative momentum squared q^2 (quarks at q + eta P and q - (1 - eta) P, eta = {m.eta:.6g})")
     q2.make_scale("q2")
     z = _dataset(g, "z", core.z, "1", ("z",), "cosine of the angle between q and P")
     z.make_scale("z")

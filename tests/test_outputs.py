@@ -109,7 +109,8 @@ def test_f_pi_at_the_published_mass_fixes_n_c_and_the_absolute_normalisation(bot
 DIMENSIONLESS = {"Z2", "Zm", "Z4", "residual", "iterations", "normalisation_agreement", "norm_sign",
                  "next_eigenvalue", "awti_residual", "goldstone_residual", "singularity_shifted_check", "eta",
                  "bse_evaluations", "grid_points", "max_bound_state_mass_eta",
-                 "singularity_approximant_holdout_error"}   # a relative error
+                 "singularity_approximant_holdout_error",    # a relative error
+                 "eta_spread_second_eta"}                    # a momentum fraction
 UNIT = re.compile(r".*_(gev|gev2|gev-1|gev-2|gev-3)$")
 
 
