@@ -170,13 +170,6 @@ class QuarkPlane:
         a, b = rational.evaluate([self.A, self.B], s)
         return s * a * a + b * b
 
-    def nearest(self, eta: float = 0.5) -> Singularity | None:
-        conf = [x for x in self.singularities if x.confirmed]
-        return min(conf, key=lambda x: x.max_mass(eta)) if conf else None
-
-    def max_bound_state_mass(self, eta: float = 0.5) -> float | None:
-        near = self.nearest(eta)
-        return None if near is None else near.max_mass(eta)
 
 
 def _thin(points: np.ndarray, spacing: float) -> np.ndarray:
@@ -188,11 +181,23 @@ def _thin(points: np.ndarray, spacing: float) -> np.ndarray:
     return np.sort(idx)
 
 
+def noise_tolerance(samples: RegionSamples, window_gev2: float = WINDOW_GEV2) -> float:
+    """The AAA tolerance the samples support: 3 × the median covariance residual of the
+    samples in the fit domain (their noise; a tighter fit only adds pole–zero pairs that
+    fit it), kept within [1e-8, 1e-4].  Measured medians: ~4e-7 translation-invariant,
+    ~2e-5 hard cutoff (Maris–Tandy, region M = 0.7 GeV)."""
+    sel = np.abs(samples.x2) <= FIT_MARGIN * window_gev2
+    res = samples.covariance_residual[sel]
+    return float(np.clip(3.0 * np.median(res), 1e-8, 1e-4)) if res.size else AAA_RTOL
+
+
 def build(sol: GapSolution, samples: RegionSamples, window_gev2: float = WINDOW_GEV2,
-          rtol: float = AAA_RTOL, max_terms: int = AAA_MAX_TERMS) -> QuarkPlane:
+          rtol: float | None = None, max_terms: int = AAA_MAX_TERMS) -> QuarkPlane:
     """Approximants of A and B on the window, validated on held-out points, and the
-    zeros of D nearest to the region."""
+    zeros of D nearest to the region.  ``rtol`` None: ``noise_tolerance``."""
     t0 = time.perf_counter()
+    if rtol is None:
+        rtol = noise_tolerance(samples, window_gev2)
     x2 = samples.x2.ravel()
     # fit on twice the window (a rational fit is least accurate at the edge of its
     # data), quote the errors inside it
@@ -215,8 +220,13 @@ def build(sol: GapSolution, samples: RegionSamples, window_gev2: float = WINDOW_
     fit_pts = np.concatenate([pts[mask], real])
     # one set of support points and weights for A and B (set-valued AAA): half the cost
     # to evaluate, and the approximants' poles are common to both
+    def spurious(poles):    # where the data say A and B are finite: the sampled region, the real axis
+        dom = np.abs(poles) <= FIT_MARGIN * window_gev2
+        on_axis = (np.abs(poles.imag) <= 1e-3 * np.abs(poles)) & (poles.real >= 0)
+        return dom & (samples.inside(poles) | on_axis)
+
     A, B = aaa(fit_pts, [np.concatenate([a_s[mask], ra[:n]]), np.concatenate([b_s[mask], rb[:n]])],
-               rtol, max_terms)
+               rtol, max_terms, spurious=spurious)
 
     def err(f, s, v):
         return float(np.max(np.abs(f(s) - v) / np.abs(v))) if v.size else 0.0
@@ -263,9 +273,18 @@ def _zeros_of_d(plane: QuarkPlane, sol: GapSolution, n_scan: int = 40) -> list[S
     return found
 
 
-def _newton(plane: QuarkPlane, s: complex, steps: int = 40, tol: float = 1e-13) -> complex | None:
+def _newton(plane: QuarkPlane, s: complex, steps: int = 40, tol: float = 1e-11) -> complex | None:
+    """A zero of D near s: Newton until the step is below ``tol``·|s| (or stagnates at the
+    rational's rounding floor); accepted when |D|/norm < 1e-9 there."""
+
+    def scaled(x):
+        a, b = rational.evaluate([plane.A, plane.B], np.array([x]))
+        a, b = complex(a[0]), complex(b[0])
+        return (x * a * a + b * b), abs(x) * abs(a) ** 2 + abs(b) ** 2
+
+    last = np.inf
     for _ in range(steps):
-        d = complex(plane.D(s))
+        d, _ = scaled(s)
         dd = complex((plane.D(s + 1e-7) - plane.D(s - 1e-7)) / 2e-7)
         if dd == 0 or not np.isfinite(dd):
             return None
@@ -273,11 +292,11 @@ def _newton(plane: QuarkPlane, s: complex, steps: int = 40, tol: float = 1e-13) 
         if abs(step) > 0.2 * max(abs(s), 0.05):
             step *= 0.2 * max(abs(s), 0.05) / abs(step)
         s += step
-        if abs(step) < tol * max(abs(s), 1e-3):
-            a, b = complex(plane.A(s)), complex(plane.B(s))
-            nrm = abs(s) * abs(a) ** 2 + abs(b) ** 2
-            return s if abs(d) / nrm < 1e-9 else None
-    return None
+        if abs(step) < tol * max(abs(s), 1e-3) or abs(step) >= last:
+            break
+        last = abs(step) if abs(step) < 1e-6 * max(abs(s), 1e-3) else np.inf
+    d, nrm = scaled(s)
+    return s if np.isfinite(d) and abs(d) / nrm < 1e-9 else None
 
 
 def _residue(plane: QuarkPlane, s0: complex) -> complex:

@@ -52,6 +52,8 @@ def test_free_quark_pole_recovered():
     assert loc.nearest is not None and loc.confirmed
     assert abs(loc.nearest.s_gev2 - (-0.09)) < 1e-8
     assert loc.nearest.max_mass(0.5) == pytest.approx(0.6, rel=1e-8)
+    # σ_S = m/(p² + m²): residue m at the pole (analytic)
+    assert abs(loc.nearest.residue_sigma_s - 0.3) < 1e-8
 
 
 @pytest.fixture(scope="module")
@@ -62,17 +64,44 @@ def plane_ti(light_ti):
 def test_approximant_continues_to_points_it_never_saw(light_ti, plane_ti):
     """Analytic continuation is unique: the approximant built on the parabola of M = 0.7
     GeV agrees with a fresh shifted solve at M = 0.5 GeV, whose nodes are new points.
-    Measured (translation-invariant Maris–Tandy, |p²| ≤ 4 GeV²): median 1.2e-7, max
-    7e-6 (at the window's edge, |p²| ≈ 3.8 GeV²); the samples themselves agree with
-    covariance to 4e-7, which bounds what any approximant of them can do."""
+    Measured (translation-invariant Maris–Tandy, |p²| ≤ 4 GeV², fit to the samples'
+    noise, 3 × their median covariance residual 3e-7): median 3.7e-7, max 3.2e-6, held
+    out 7.6e-6 — the level of the samples' own noise."""
     other = quarkplane.sample(light_ti, 0.5)
     x2 = other.x2
     sel = np.abs(x2) <= plane_ti.window_gev2
     err = np.maximum(np.abs(plane_ti.A(x2[sel]) - other.A[sel]) / np.abs(other.A[sel]),
                      np.abs(plane_ti.B(x2[sel]) - other.B[sel]) / np.abs(other.B[sel]))
     assert np.median(err) < 1e-6
-    assert err.max() < 3e-5
-    assert plane_ti.holdout_error < 3e-5
+    assert err.max() < 1e-5
+    assert plane_ti.holdout_error < 2e-5
+
+
+@pytest.mark.parametrize("fixture", ["light_ti", "light_hard"])
+def test_no_pole_of_the_approximant_where_the_samples_say_it_is_finite(fixture, request):
+    """A and B are finite in the sampled region (the shifted solve converged there): a pole
+    of the approximant inside it is a pole–zero pair fitting noise and must be gone (AAA
+    clean-up, common practice).  Checked on the poles and on a dense grid of the region."""
+    sol = request.getfixturevalue(fixture)
+    smp = quarkplane.sample(sol, 0.7)
+    plane = quarkplane.build(sol, smp)
+    poles = plane.A.poles()
+    dom = np.abs(poles) <= quarkplane.FIT_MARGIN * plane.window_gev2
+    assert not np.any(dom & smp.inside(poles))
+    g = (np.linspace(-0.12, 4, 200)[:, None] + 1j * np.linspace(-2, 2, 200)[None, :]).ravel()
+    g = g[smp.inside(g) & (np.abs(g) <= plane.window_gev2)]
+    a, b = sol.dressing(np.array([1e-3]))
+    assert np.max(np.abs(plane.A(g))) < 3 * abs(a[0]) and np.max(np.abs(plane.B(g))) < 3 * abs(b[0])
+
+
+def test_the_zero_does_not_depend_on_the_size_of_the_fit(light_ti, plane_ti):
+    """The nearest zero of D is a property of the function, not of the fit: with a fit run
+    to 30 or 100 terms (past the noise) it stays within 1e-4 (measured 1e-5)."""
+    ref = min(plane_ti.singularities, key=lambda x: x.max_mass()).s_gev2
+    for terms in (30, 100):
+        other = quarkplane.build(light_ti, plane_ti.samples, rtol=1e-12, max_terms=terms)
+        z = min(other.singularities, key=lambda x: x.max_mass()).s_gev2
+        assert abs(z - ref) / abs(ref) < 1e-4
 
 
 def test_approximant_restricted_to_the_real_axis_is_the_gap_solution(light_ti, plane_ti):
