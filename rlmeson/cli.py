@@ -3,6 +3,7 @@
     rlmeson quark CONFIG [--flavour NAME] [--json] [--plot FILE.png|.pdf|.svg] [--no-cache]
     rlmeson run CONFIG [--out DIR] [--no-cache] [--quiet]
     rlmeson plot DIR [DIR ...] [--out DIR] [--format png|pdf|svg] [--uncut]
+    rlmeson export SOURCE [--what ...] [--format ...] [--out DIR] [--region-mass GEV] [--flavour NAME]
 
 Exit codes: 0 success, 2 bad input (one line naming the key, the value and what is
 allowed), 1 a computation that could not be completed (one line saying why).
@@ -217,21 +218,25 @@ def _config_of_source(source: str):
 
 def _region_mass(args, cfg, quark, masses) -> float:
     """The exported parabola's mass: the option, else the largest bound-state mass made of
-    this flavour (run summary, else the config's mass guesses), else 0.9 M_max; always
-    below M_max, where the shifted continuation is the analytic one."""
+    this flavour (run summary, else the config's mass guesses), capped at 0.9 M_max; always
+    below M_max, where the shifted continuation is the analytic one.  With M_max not
+    confirmed, the default is capped at 1.3 M(0) (clear of the singularities of these
+    interactions, which lie near 2 M(0)) and an explicit value cannot be checked (warned)."""
     m_max = quark.max_bound_state_mass_gev if quark.confirmed else None
     if args.region_mass is not None:
         if m_max is not None and args.region_mass >= m_max:
             raise UsageError(f"--region-mass {args.region_mass:g}: allowed below M_max = {m_max:.5g} GeV for "
                              f"flavour {quark.flavour} (beyond it the parabola encloses the propagator's "
                              "singularity)")
+        if m_max is None:
+            print(f"rlmeson: warning: --region-mass {args.region_mass:g} cannot be checked against M_max for "
+                  f"flavour {quark.flavour} (its singularity is not confirmed)", file=sys.stderr)
         return args.region_mass
-    cands = []
     if masses:
         cands = [m for m, qs in masses.values() if m and quark.flavour in qs]
     else:
         cands = [m.mass_guess_gev for m in cfg.mesons if m.mass_guess_gev and quark.flavour in m.quarks]
-    top = 0.9 * (m_max or quark.search_limit_gev)
+    top = 0.9 * m_max if m_max is not None else 1.3 * abs(quark.mass_function_at_zero_gev)
     return float(min(max(cands), top) if cands else top)
 
 
@@ -245,16 +250,29 @@ def cmd_export(args) -> int:
             raise UsageError(f"--flavour {args.flavour!r}: allowed {', '.join(f.name for f in cfg.flavours)}")
     if args.what in ("amplitude", "all") and not cfg.mesons:
         raise UsageError(f"--what {args.what}: the config {cfg.name} lists no mesons")
+    if args.region_mass is not None and (args.what == "amplitude" or args.format == "csv"):
+        raise UsageError(f"--region-mass {args.region_mass:g}: applies to the propagator's complex region; "
+                         "allowed with --what propagator or all and --format netcdf or hdf5")
     out = Path(args.out)
     if out.exists() and not out.is_dir():
         raise UsageError(f"--out {out}: exists and is not a directory")
     base = _nearest_existing(out)
     if not base.is_dir() or not os.access(base, os.W_OK | os.X_OK):
         raise UsageError(f"--out {out}: {base} cannot be written")
+    created = not out.exists()
     try:
         out.mkdir(parents=True, exist_ok=True)
     except OSError as e:
         raise UsageError(f"--out {out}: cannot be created ({e.strerror or type(e).__name__})") from None
+    try:
+        return _export(args, cfg, masses, out)
+    except BaseException:
+        if created and out.is_dir() and not any(out.iterdir()):
+            out.rmdir()                    # leave nothing behind a failed export
+        raise
+
+
+def _export(args, cfg, masses, out: Path) -> int:
     _check_store(cfg, args.no_cache)
     from . import exchange, pipeline  # the numerics (JAX) only after the input is checked
 
@@ -264,15 +282,19 @@ def cmd_export(args) -> int:
     if args.what in ("amplitude", "all"):
         names = list(dict.fromkeys(names + [q for m in cfg.mesons for q in m.quarks]))
     quarks = {n: pipeline.solve_quark(cfg, n, store, say) for n in names}
+    props = [args.flavour] if args.flavour else [f.name for f in cfg.flavours]
+    # every region checked before anything is written
+    regions = ({n: _region_mass(args, cfg, quarks[n], masses) for n in props}
+               if args.what in ("propagator", "all") and args.format != "csv" else {})
     written = []
     if args.what in ("propagator", "all"):
-        for n in ([args.flavour] if args.flavour else [f.name for f in cfg.flavours]):
+        for n in props:
             q = quarks[n]
             path = exchange.target(out, "propagator", n, args.format)
             if args.format == "csv":
                 exchange.write_propagator_csv(cfg, q, path)
             else:
-                plane = pipeline.quark_plane(cfg, q, _region_mass(args, cfg, q, masses), 0.5, store, say)
+                plane = pipeline.quark_plane(cfg, q, regions[n], 0.5, store, say)
                 exchange.write(exchange.propagator_dataset(cfg, q, plane), path, args.format)
             written.append(path)
     if args.what in ("amplitude", "all"):

@@ -95,8 +95,8 @@ def propagator_dataset(cfg, quark, plane=None):
         "quark_summary": _json(quark.summary()),
     })
     if plane is not None:
-        data.update(_region_variables(plane))
-        attrs.update(_region_attributes(plane))
+        data.update(_region_variables(plane, quark))
+        attrs.update(_region_attributes(plane, quark))
         coords.update({
             "region_z": ("region_z", plane.samples.z, {"units": "1", "long_name": "cosine of the angle between "
                                                        "q and P at the region nodes (Chebyshev-U nodes)"}),
@@ -105,7 +105,12 @@ def propagator_dataset(cfg, quark, plane=None):
     return xr.Dataset(data, coords=coords, attrs=attrs)
 
 
-def _region_variables(plane) -> dict:
+def _confirmed(quark):
+    """The quark stage's confirmed nearest singularity (None when unconfirmed)."""
+    return complex(quark.singularity_gev2) if quark.confirmed and quark.singularity_gev2 is not None else None
+
+
+def _region_variables(plane, quark) -> dict:
     smp = plane.samples
     dims = ("region_z", "region_q2")
     out = {}
@@ -132,7 +137,14 @@ def _region_variables(plane) -> dict:
     dim = ("singularity",)
     out.update(_complex("singularity_p2", dim, [x.s_gev2 for x in sings], "GeV2",
                         "zeros of p^2 A^2 + B^2 of the approximants in the upper half plane (each with its "
-                        "complex conjugate), nearest first"))
+                        "complex conjugate), nearest first: extrapolations beyond the sampled region; only the "
+                        "one flagged by singularity_confirmed was checked"))
+    conf = _confirmed(quark)
+    out["singularity_confirmed"] = (dim, np.array([int(conf is not None and abs(x.s_gev2 - conf) <= 1e-3 * abs(conf))
+                                                   for x in sings], np.int8), {
+        "units": "1", "flag_values": np.array([0, 1], np.int8), "flag_meanings": "unconfirmed confirmed",
+        "long_name": "1 for the quark stage's nearest singularity, confirmed by a shifted solve just beyond the "
+                     "M_max it allows (quark_summary: singularity_shifted_check)"})
     out.update(_complex("singularity_residue_sigma_s", dim,
                         [x.residue_sigma_s if x.residue_sigma_s is not None else np.nan for x in sings], "GeV",
                         "residue of sigma_S at the zero"))
@@ -142,9 +154,9 @@ def _region_variables(plane) -> dict:
     return out
 
 
-def _region_attributes(plane) -> dict:
+def _region_attributes(plane, quark) -> dict:
     smp = plane.samples
-    near = min(plane.singularities, key=lambda x: x.max_mass(smp.eta)) if plane.singularities else None
+    conf = _confirmed(quark)
     return {
         "region_continuation": "shifted (quark-routed): the gap equation solved at p = q + eta P with the gluon "
                                "momentum real; the analytic continuation of the real-axis solution",
@@ -160,9 +172,10 @@ def _region_attributes(plane) -> dict:
         "approximant_domain": "complex p^2 inside the region with |p^2| <= approximant_window_gev2",
         "approximant_holdout_error": plane.holdout_error,
         "approximant_real_axis_error": plane.real_axis_error,
-        "nearest_singularity_re_gev2": np.nan if near is None else float(near.s_gev2.real),
-        "nearest_singularity_im_gev2": np.nan if near is None else float(near.s_gev2.imag),
-        "max_bound_state_mass_gev": np.nan if near is None else near.max_mass(smp.eta),
+        "nearest_singularity_re_gev2": np.nan if conf is None else conf.real,
+        "nearest_singularity_im_gev2": np.nan if conf is None else conf.imag,
+        "nearest_singularity_status": quark.m_max_status(),
+        "max_bound_state_mass_gev": np.nan if conf is None else float(quark.max_bound_state_mass_gev),
     }
 
 

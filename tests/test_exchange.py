@@ -180,6 +180,8 @@ def _rl(*args, cwd=None):
     (["export", "configs/mt-pion.toml", "--format", "csv"], "--format csv"),
     (["export", "configs/mt-pion.toml", "--region-mass", "-1"], "--region-mass"),
     (["export", "configs/mt-pion.toml", "--flavour", "s"], "--flavour"),
+    (["export", "configs/mt-pion.toml", "--format", "csv", "--what", "propagator", "--region-mass", "0.5"],
+     "--region-mass"),
 ])
 def test_bad_export_requests_are_one_line_errors(args, needle):
     p = _rl(*args)
@@ -246,3 +248,28 @@ def test_export_from_a_run_directory_matches_the_run(figure_run, tmp_path):
             stored = h[f"mesons/{m['name']}/amplitude_re"][()] + 1j * h[f"mesons/{m['name']}/amplitude_im"][()]
             qq, zz = np.meshgrid(a.q2, a.z)
             assert np.allclose(a(qq, zz), stored, rtol=1e-9, atol=1e-12 * np.abs(stored).max())
+
+
+def test_region_beyond_m_max_is_refused_and_leaves_nothing(exported, tmp_path):
+    """M_max is known only after the quark stage; a region past it is refused there, with
+    one line naming the option and M_max, exit 2, and no output directory left behind."""
+    p = _rl("export", str(exported["dir"] / "exchange-test.toml"), "--what", "propagator", "--region-mass", "5",
+            "--out", str(tmp_path / "o"), "--quiet")
+    assert p.returncode == 2
+    line = p.stderr.strip().splitlines()[-1]
+    assert "--region-mass 5" in line and "M_max" in line
+    assert not (tmp_path / "o").exists()
+
+
+def test_file_reports_only_the_confirmed_singularity(exported):
+    """The nearest singularity in the file's attributes is the quark stage's confirmed one;
+    the other zeros of the approximants are flagged as unconfirmed extrapolations."""
+    q = exported["quark"]
+    assert q.confirmed
+    with h5py.File(exported["files"][("propagator", "netcdf")], "r") as h:
+        flags = h["singularity_confirmed"][()]
+        zeros = h["singularity_p2_re"][()] + 1j * h["singularity_p2_im"][()]
+        assert flags.sum() == 1
+        assert abs(zeros[flags == 1][0] - q.singularity_gev2) <= 1e-3 * abs(q.singularity_gev2)
+        assert h.attrs["nearest_singularity_re_gev2"] == q.singularity_gev2.real
+        assert h.attrs["max_bound_state_mass_gev"] == q.max_bound_state_mass_gev
