@@ -25,6 +25,10 @@ def main(path, p2):
         window = h.attrs["approximant_window_gev2"]
         if abs(p2) > window:
             sys.exit(f"|p^2| = {abs(p2):.3g} GeV^2 is outside the approximant's window {window:g} GeV^2")
+        # inside the exported parabola: q^2 = Re p^2 + eta^2 M^2 >= (Im p^2)^2 / (4 eta^2 M^2)
+        y = (h.attrs["region_eta"] * h.attrs["region_mass_gev"]) ** 2
+        if p2.real + y < p2.imag**2 / (4 * y):
+            sys.exit(f"p^2 = {p2} lies outside the exported parabola (apex {-y:.4g} GeV^2)")
         a, b = rational(h, "A")(p2), rational(h, "B")(p2)
         print(f"file: flavour {h.attrs['flavour']}, config hash {h.attrs['config_hash']}, "
               f"{h.attrs['regularisation_description']}")

@@ -27,8 +27,9 @@ from .store import Store
 Progress = Callable[[str], None]
 
 
-#: |D|/norm below which the shifted continuation confirms a singularity found directly.
-SINGULARITY_CONFIRMED = 0.1
+#: |D|/norm below which the shifted continuation confirms a singularity (the one
+#: threshold, derived and labelled at ``quarkplane.CONFIRMED``).
+SINGULARITY_CONFIRMED = quarkplane.CONFIRMED
 
 
 def _quiet(_msg: str) -> None:

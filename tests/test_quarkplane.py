@@ -120,7 +120,7 @@ def test_maris_tandy_pole_pair_is_stable_and_confirmed(light_hard):
     and 0.85 GeV) continue to the same zero (uniqueness; measured 1e-4 apart, limited by
     the hard cutoff's non-covariance 5e-5 of the samples); the shifted solve just beyond the
     M_max it allows has |D|/norm < 0.1 there (measured 0.005).  The direct continuation's
-    zero lies 3.6% away (measured; it is not the analytic continuation)."""
+    zero lies 3.5% away (measured; it is not the analytic continuation)."""
     z1 = min(quarkplane.build(light_hard, quarkplane.sample(light_hard, 0.62)).singularities,
              key=lambda x: x.max_mass())
     loc = quarkplane.locate(light_hard)
