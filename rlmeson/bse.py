@@ -113,6 +113,15 @@ class BoundState:
                           max_mass=self.max_mass if max_mass is None else max_mass,
                           quark_operator=self._qop, shifted_tol=self.shifted_tol)
 
+    def spacelike_twin(self) -> "BoundState":
+        """The same problem with the direct continuation, sharing the BSE kernel, for
+        spacelike P (P² = μ² > 0, called with mass = iμ): the quark momenta q + ηP and
+        q − (1−η)P are then real Euclidean vectors, where the direct evaluation of the
+        self-energy is the real-axis solution itself (exact)."""
+        return BoundState(self.kernel, self.channel, self.grid, self.quark1,
+                          None if self.quark2 is self.quark1 else self.quark2, eta=self.eta,
+                          kernel_operator=self.ladder, continuation="direct")
+
     @property
     def shape(self):
         return (self.channel.n_basis, self.grid.n_z, self.radial.size)

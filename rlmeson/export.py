@@ -3,7 +3,8 @@
 * ``results.h5``: plain HDF5 (datasets + attributes, readable with h5py alone):
   ``/quarks/<flavour>/{q2, A, B, M, Z, above_regulator_scale}`` and ``/mesons/<name>/{q2,
   z, amplitude_re, amplitude_im, moments_re, moments_im, curve_mass, curve_eigenvalue,
-  spectrum_mass, spectrum_p2, spectrum_re, spectrum_im, above_regulator_scale}`` (+
+  spectrum_mass, spectrum_p2, spectrum_re, spectrum_im, spacelike_p2, spacelike_re/_im,
+  above_regulator_scale}`` (+
   ``EFGH_re/_im`` for pseudoscalars); every dataset has ``units``, ``long_name`` and
   ``dimensions`` attributes; the file and each group carry ``config_hash`` and
   ``package_version``; each group's ``summary`` attribute holds its summary as JSON text.
@@ -146,6 +147,12 @@ def _write_meson(g, m, ms, kern, config_hash, version) -> None:
         _dataset(g, "spectrum_re", sl.real, "1", ("point", "eigenvalue"),
                  "real part of the leading eigenvalues lambda_1 >= lambda_2 >= lambda_3 at P^2")
         _dataset(g, "spectrum_im", sl.imag, "1", ("point", "eigenvalue"), "imaginary part of the same")
+    if core.spacelike is not None:
+        sp, sv = core.spacelike
+        _dataset(g, "spacelike_p2", sp, "GeV^2", ("spacelike_point",), "spacelike P^2 > 0 of the spectrum points")
+        _dataset(g, "spacelike_re", sv.real, "1", ("spacelike_point", "eigenvalue"),
+                 "real part of the leading eigenvalues at spacelike P^2 (direct continuation: exact there)")
+        _dataset(g, "spacelike_im", sv.imag, "1", ("spacelike_point", "eigenvalue"), "imaginary part of the same")
     if m.channel == "pseudoscalar":
         em = core.mass_gev if core.mass_gev > 0 else observables.CHIRAL_PROBES_GEV[0]
         efgh = pseudoscalar_efgh(m, em)

@@ -390,6 +390,7 @@ class BoundStateCore:
     shifted_residual: float | None
     #: the leading SPECTRUM_K eigenvalues λ_i(P² = −M²) at a few masses: (masses (n,), λ (n, k))
     spectrum: tuple[np.ndarray, np.ndarray] | None = field(default=None, repr=False)
+    spacelike: tuple[np.ndarray, np.ndarray] | None = field(default=None, repr=False)   # (P² > 0, λ)
     #: |M(η₂) − M(η)| and η₂ (``eta_spread``), when computed
     eta_spread_gev: float | None = None
     eta_spread_second_eta: float | None = None
@@ -487,6 +488,7 @@ def bound_state(cfg: Config, meson: MesonConfig, quarks: dict[str, QuarkResult],
     nxt = float(vals[1].real) if len(vals) > 1 else None
     shifted = bs.shifted_residual
     spec = _spectrum(bs, mass, m_max, m_eval, vals, vecs) if spectrum else None
+    space = _spacelike(bs) if spectrum else None
     spread = second = None
     if eta_spread and not chiral:
         progress(f"{meson.name}: the mass at a second momentum partition (eta spread)")
@@ -503,7 +505,7 @@ def bound_state(cfg: Config, meson: MesonConfig, quarks: dict[str, QuarkResult],
             second, spread = got
     return BoundStateCore(mass_gev=mass, chiral=chiral, normalised=nrm, next_eigenvalue=nxt,
                           goldstone_residual=goldstone, curve=curve, evaluations=evals,
-                          q2=bs.q2, z=bs.z, shifted_residual=shifted, spectrum=spec,
+                          q2=bs.q2, z=bs.z, shifted_residual=shifted, spectrum=spec, spacelike=space,
                           eta_spread_gev=spread, eta_spread_second_eta=second)
 
 
@@ -572,6 +574,29 @@ def _spectrum(bs, mass: float, m_max: float, m_eval: float, vals, vecs) -> tuple
             start[float(m)] = np.asarray(w).sum(axis=1)
     ms = np.array(sorted(points))
     return ms, np.stack([points[m] for m in ms])
+
+
+#: Spacelike points of the λ(P²) figure, P² in GeV².
+SPECTRUM_SPACELIKE_GEV2 = (0.1, 0.3)
+
+
+def _spacelike(bs) -> tuple[np.ndarray, np.ndarray] | None:
+    """λ_1..λ_k at spacelike P² (``SPECTRUM_SPACELIKE_GEV2``) with the direct continuation,
+    exact there (``bse.BoundState.spacelike_twin``); None if a solve fails (a picture)."""
+    from scipy.sparse.linalg import ArpackNoConvergence
+
+    twin = bs.spacelike_twin()
+    vals, start = [], None
+    try:
+        for p2 in SPECTRUM_SPACELIKE_GEV2:
+            v, w = twin.eigen(1j * float(np.sqrt(p2)), k=SPECTRUM_K, v0=start, tol=SPECTRUM_TOL)
+            if len(v) != SPECTRUM_K or not np.all(np.isfinite(v)):
+                return None
+            vals.append(np.asarray(v, dtype=complex))
+            start = np.asarray(w).sum(axis=1)
+    except (ArpackNoConvergence, ValueError, FloatingPointError):
+        return None
+    return np.asarray(SPECTRUM_SPACELIKE_GEV2, dtype=float), np.stack(vals)
 
 
 def _normalise_at(bs, lead: search.Leading, mass: float, vec) -> observables.Normalised:
@@ -709,6 +734,8 @@ def _core_to_store(prefix: str, c: BoundStateCore, arrays: dict, attrs: dict) ->
     arrays[f"{prefix}curve"] = np.stack([ms, ls])
     if c.spectrum is not None:
         arrays[f"{prefix}spectrum_mass"], arrays[f"{prefix}spectrum"] = c.spectrum
+    if c.spacelike is not None:
+        arrays[f"{prefix}spacelike_p2"], arrays[f"{prefix}spacelike"] = c.spacelike
     attrs[f"{prefix}core"] = {
         "mass_gev": c.mass_gev, "chiral": c.chiral, "next_eigenvalue": c.next_eigenvalue,
         "goldstone_residual": c.goldstone_residual, "evaluations": c.evaluations,
@@ -737,10 +764,13 @@ def _core_from_store(prefix: str, arrays: dict, attrs: dict) -> BoundStateCore:
     spec = None
     if f"{prefix}spectrum_mass" in arrays and f"{prefix}spectrum" in arrays:
         spec = (np.asarray(arrays[f"{prefix}spectrum_mass"]), np.asarray(arrays[f"{prefix}spectrum"]))
+    space = None
+    if f"{prefix}spacelike_p2" in arrays and f"{prefix}spacelike" in arrays:
+        space = (np.asarray(arrays[f"{prefix}spacelike_p2"]), np.asarray(arrays[f"{prefix}spacelike"]))
     return BoundStateCore(mass_gev=a["mass_gev"], chiral=a["chiral"], normalised=n,
                           next_eigenvalue=a["next_eigenvalue"], goldstone_residual=a["goldstone_residual"],
                           curve=curve, evaluations=a["evaluations"], q2=arrays[f"{prefix}q2"],
-                          z=arrays[f"{prefix}z"], shifted_residual=a["shifted_residual"], spectrum=spec,
+                          z=arrays[f"{prefix}z"], shifted_residual=a["shifted_residual"], spectrum=spec, spacelike=space,
                           eta_spread_gev=a.get("eta_spread_gev"), eta_spread_second_eta=a.get("eta_spread_second_eta"))
 
 

@@ -10,7 +10,7 @@ Figures:
 * ``mass_function``: M(p²) and Z(p²), ζ² marked, model and parameters in the title;
   values above the regulator scale Λ_R² (translation-invariant regularisation, where the
   dressing flattens as an artefact of the regulator) are left out by default.
-* ``eigenvalue_spectrum``: the leading three eigenvalues λ_i(P²) from P² = 0 to past the
+* ``eigenvalue_spectrum``: the leading three eigenvalues λ_i(P²) from spacelike P² through 0 to past the
   crossing λ = 1, which is marked at P² = −M².
 * ``amplitudes``: the leading amplitudes against q² up to ``AMPLITUDE_Q2_MAX`` at
   z = 0, 0.5, 0.9, with sign — E, F, G, H for pseudoscalars, the covariants' coefficients
@@ -125,6 +125,8 @@ class MesonData:
     curve_eigenvalue: np.ndarray
     spectrum_mass: np.ndarray | None = None
     spectrum: np.ndarray | None = None     # (point, k), complex
+    spacelike_p2: np.ndarray | None = None  # P² > 0 (GeV²)
+    spacelike: np.ndarray | None = None     # (point, k), complex
 
 
 @dataclass
@@ -200,7 +202,9 @@ def read_run(where) -> RunData:
                 chiral="goldstone_residual" in ms, convention=str(g.attrs.get("convention", "")),
                 q2=g["q2"][()], z=z, labels=labels, moments=_moments(vals, z), units=units,
                 component_note=note, curve_mass=g["curve_mass"][()], curve_eigenvalue=g["curve_eigenvalue"][()],
-                spectrum_mass=spec_m, spectrum=spec)
+                spectrum_mass=spec_m, spectrum=spec,
+                spacelike_p2=g["spacelike_p2"][()] if "spacelike_p2" in g else None,
+                spacelike=g["spacelike_re"][()] + 1j * g["spacelike_im"][()] if "spacelike_re" in g else None)
     return run
 
 
@@ -260,8 +264,13 @@ def eigenvalue_spectrum_figure(mesons: list[tuple[str, MesonData]]):
         pre = f"{label}: " if len(mesons) > 1 else ""
         if m.spectrum is not None and len(m.spectrum_mass):
             p2 = -m.spectrum_mass**2
-            for i in range(m.spectrum.shape[1]):
-                ax.plot(p2, m.spectrum[:, i].real, marker="o", ms=3, **style(i, r),
+            lam = m.spectrum.real
+            if m.spacelike is not None and len(m.spacelike_p2):    # P² > 0 continues the curves
+                order = np.argsort(np.concatenate([p2, m.spacelike_p2]))
+                p2 = np.concatenate([p2, m.spacelike_p2])[order]
+                lam = np.concatenate([lam, m.spacelike.real])[order]
+            for i in range(lam.shape[1]):
+                ax.plot(p2, lam[:, i], marker="o", ms=3, **style(i, r),
                         label=f"{pre}Re λ{i + 1}")
         ax.plot(-m.curve_mass**2, m.curve_eigenvalue, ls="none", marker=".", ms=3, color="0.5",
                 label=f"{pre}root search (λ₁)" if r == 0 else None)

@@ -103,6 +103,19 @@ def test_spectrum_spans_the_crossing_with_three_eigenvalues(run_data):
     assert np.all(lam[:, 1] < lam[:, 0]) and np.all(lam[:, 2] <= lam[:, 1])
 
 
+def test_spectrum_continues_to_spacelike_momenta(run_data):
+    """λ(P²) on the spacelike side (direct continuation, exact at real quark momenta): the
+    leading eigenvalue keeps falling as P² grows past 0 (the kernel's strength falls with
+    the quarks' momenta; common practice), below its value at P² = 0."""
+    for name in ("pi", "rho"):
+        m = run_data.mesons[name]
+        assert m.spacelike_p2 is not None and np.all(m.spacelike_p2 > 0)
+        lam = m.spacelike.real
+        at0 = m.spectrum.real[np.argmin(m.spectrum_mass), 0]
+        assert lam[0, 0] < at0 and np.all(np.diff(lam[:, 0]) < 0)
+        assert np.all(np.abs(m.spacelike.imag) < 1e-8)                  # real at spacelike P
+
+
 def test_pseudoscalar_amplitudes_in_the_efgh_basis_up_to_20_gev2(run_data):
     for name in ("pi", "pi0"):
         fig = plots.amplitudes_figure([("", run_data.mesons[name])])
