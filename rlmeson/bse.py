@@ -17,7 +17,6 @@ import scipy.sparse.linalg as spla
 
 from . import ladder
 from . import propagators as props
-from . import quadrature as qd
 from .channels import Channel
 from .dirac import rest_frame_vectors
 from .gap import GapSolution

@@ -17,14 +17,13 @@ Chebyshev-U moments F_m(q) with F(q, z) = Σ_m F_m(q) U_m(z), z = q̂·P̂.
 
 from __future__ import annotations
 
-import io
 import json
 
 import numpy as np
 
 from . import channels, observables
 from . import quadrature as qd
-from .store import atomic_path, atomic_write_text
+from .store import atomic_path
 
 
 def moments(amp: np.ndarray, z: np.ndarray) -> np.ndarray:

@@ -116,3 +116,29 @@ def figure_run(tmp_path_factory):
         code = cli.main(["run", str(cfg), "--out", str(out), "--quiet"])
     assert code == 0, buf.getvalue()
     return out, buf.getvalue()
+
+
+def run_cli(args):
+    """(exit code, stdout, stderr) of the command line run in this process."""
+    import contextlib
+    import io
+
+    from rlmeson import cli
+
+    out, err = io.StringIO(), io.StringIO()
+    with contextlib.redirect_stdout(out), contextlib.redirect_stderr(err):
+        code = cli.main([str(a) for a in args])
+    return code, out.getvalue(), err.getvalue()
+
+
+def normalised_at(bs, mass, vec):
+    """The normalised amplitude at ``mass`` from eigenvector ``vec`` (λ at the masses of
+    the eigenvalue derivative, then both normalisations), as the pipeline does."""
+    from rlmeson import observables, search
+
+    lead = search.Leading(bs)
+    lam = {}
+    for m in observables.derivative_masses(mass):
+        lead.vec = vec
+        lam[m] = lead(m)
+    return observables.normalise(bs, mass, vec, lam)

@@ -13,17 +13,11 @@ import math
 import numpy as np
 import pytest
 
-from conftest import M_LIGHT, ZETA, mt_kernel
+from conftest import M_LIGHT, ZETA, mt_kernel, normalised_at
 from rlmeson import bse, channels, gap, identities, observables, search
 
 
-def _normalised(bs, mass, vec):
-    lead = search.Leading(bs)
-    lam = {}
-    for m in observables.derivative_masses(mass):
-        lead.vec = vec
-        lam[m] = lead(m)
-    return observables.normalise(bs, mass, vec, lam)
+_normalised = normalised_at
 
 
 def _solve(bs, guess, m_max=1.05):

@@ -25,7 +25,7 @@ import dataclasses
 import numpy as np
 import pytest
 
-from conftest import ZETA
+from conftest import ZETA, normalised_at
 from rlmeson import bse, channels, gap, observables, pipeline, search
 
 GRID = bse.BSEGrid(n_z=6, order=6)
@@ -38,13 +38,7 @@ M_MAX = 1.05    # below the light quark's M_max(1/2) = 1.07 GeV (README) and the
 TIGHT = 1e-13
 
 
-def _normalised(bs, mass, vec):
-    lead = search.Leading(bs)
-    lam = {}
-    for m in observables.derivative_masses(mass):
-        lead.vec = vec
-        lam[m] = lead(m)
-    return observables.normalise(bs, mass, vec, lam)
+_normalised = normalised_at
 
 
 def _solve(bs, guess, step=0.15):

@@ -13,9 +13,7 @@ a wrong √2 (41%) in ρ alone; Goldstone's theorem λ(P² = 0) = 1 in the chira
 (README, "What you get").
 """
 
-import contextlib
 import dataclasses
-import io
 import json
 import math
 import re
@@ -25,6 +23,7 @@ import numpy as np
 import pytest
 
 from rlmeson import cli, config, pipeline
+from conftest import run_cli
 
 MT99 = """
 name = "mt99-conventions"
@@ -52,11 +51,7 @@ M_PI = 0.138                # GeV, MT99 fit target (from memory)
 HARD_CUTOFF_AVWTI = 0.03    # the 1.7% artefact (measured, README) with room
 
 
-def _main(args):
-    out, err = io.StringIO(), io.StringIO()
-    with contextlib.redirect_stdout(out), contextlib.redirect_stderr(err):
-        code = cli.main([str(a) for a in args])
-    return code, out.getvalue(), err.getvalue()
+_main = run_cli
 
 
 @pytest.fixture(scope="module")

@@ -9,24 +9,19 @@ ground state (common practice, PHYSICS.md); the regulator scale Λ_R² above whi
 translation-invariant regularisation flattens the dressing (README).
 """
 
-import contextlib
-import io
 
 import h5py
 import numpy as np
 import pytest
 from matplotlib import ticker
 
-from rlmeson import cli, plots
+from rlmeson import plots
+from conftest import run_cli
 
 SIGNATURE = {"png": b"\x89PNG\r\n\x1a\n", "pdf": b"%PDF", "svg": b"<?xml"}
 
 
-def _main(args):
-    out, err = io.StringIO(), io.StringIO()
-    with contextlib.redirect_stdout(out), contextlib.redirect_stderr(err):
-        code = cli.main([str(a) for a in args])
-    return code, out.getvalue(), err.getvalue()
+_main = run_cli
 
 
 @pytest.fixture(scope="module")

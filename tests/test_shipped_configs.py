@@ -16,9 +16,7 @@ of the published ones (README) -- hence 2% bands.
 
 from __future__ import annotations
 
-import contextlib
 import csv
-import io
 import json
 import math
 import shutil
@@ -28,7 +26,7 @@ import h5py
 import numpy as np
 import pytest
 
-from rlmeson import cli
+from conftest import run_cli
 
 CONFIGS = Path(__file__).resolve().parents[1] / "configs"
 SHIPPED = sorted(p.stem for p in CONFIGS.glob("*.toml"))
@@ -63,11 +61,7 @@ def _reduced_copy(name: str, where: Path, only_first_meson: bool = False) -> Pat
     return p
 
 
-def _main(args):
-    out, err = io.StringIO(), io.StringIO()
-    with contextlib.redirect_stdout(out), contextlib.redirect_stderr(err):
-        code = cli.main([str(a) for a in args])
-    return code, out.getvalue(), err.getvalue()
+_main = run_cli
 
 
 @pytest.fixture(scope="module")
