@@ -19,3 +19,33 @@ def open_amplitude(path):
     from .readers import open_amplitude as _open
 
     return _open(path)
+
+
+def load_config(source, overrides=()):
+    """A validated config from a TOML file path or a dict of the same layout, with
+    optional ``KEY=VALUE`` overrides (as ``--set`` on the command line)."""
+    from . import config
+
+    if isinstance(source, dict):
+        return config.from_dict(config.apply_overrides(source, overrides))
+    return config.load(source, overrides)
+
+
+def run(cfg, cache: bool = True, progress=None):
+    """Solve every quark and meson of ``cfg`` (a config, path or dict); returns the
+    pipeline's ``RunResult`` (``.summary()`` is what summary.json holds).  Results are
+    read from and written to the cache unless ``cache`` is False."""
+    from . import pipeline
+
+    if not hasattr(cfg, "hash"):
+        cfg = load_config(cfg)
+    kw = {} if progress is None else {"progress": progress}
+    return pipeline.run(cfg, pipeline.store_of(cfg, cache), **kw)
+
+
+def open_run(path):
+    """A run directory written by ``rlmeson run``: ``.summary``, ``.quarks``, ``.mesons``,
+    ``.config``, ``.propagator(flavour)``, ``.amplitude(meson)``."""
+    from .readers import open_run as _open
+
+    return _open(path)

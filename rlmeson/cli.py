@@ -4,6 +4,8 @@
     rlmeson run CONFIG [--out DIR] [--no-cache] [--quiet]
     rlmeson plot DIR [DIR ...] [--out DIR] [--format png|pdf|svg] [--uncut]
     rlmeson export SOURCE [--what ...] [--format ...] [--out DIR] [--region-mass GEV] [--flavour NAME]
+    rlmeson show DIR
+    (quark, run and export take --set KEY=VALUE overrides of config keys)
 
 Exit codes: 0 success, 2 bad input (one line naming the key, the value and what is
 allowed), 1 a computation that could not be completed (one line saying why).
@@ -46,11 +48,15 @@ def _parser() -> argparse.ArgumentParser:
     q.add_argument("--json", action="store_true", help="print one JSON object on stdout")
     q.add_argument("--plot", metavar="FILE", help="draw M(p²) and Z(p²) (format from the suffix: .png, .pdf, .svg)")
     q.add_argument("--no-cache", action="store_true", help="neither read nor write the result cache")
+    q.add_argument("--set", action="append", default=[], metavar="KEY=VALUE",
+                   help="override a config key (dotted, e.g. interaction.omega_gev=0.45); repeatable")
     r = sub.add_parser("run", help="solve the quarks and every meson of the config, write outputs")
     r.add_argument("config")
     r.add_argument("--out", metavar="DIR", help="output directory (default runs/<name>-<hash>)")
     r.add_argument("--no-cache", action="store_true")
     r.add_argument("--quiet", action="store_true", help="no progress lines")
+    r.add_argument("--set", action="append", default=[], metavar="KEY=VALUE",
+                   help="override a config key (dotted, e.g. interaction.omega_gev=0.45); repeatable")
     g = sub.add_parser("plot", help="redraw the figures of runs from their results.h5 (overlaid if several)")
     g.add_argument("dirs", nargs="+", metavar="DIR", help="run directories written by 'rlmeson run'")
     g.add_argument("--out", metavar="DIR", help="where to write the figures (default: the run directory; "
@@ -70,6 +76,10 @@ def _parser() -> argparse.ArgumentParser:
     e.add_argument("--flavour", help="only this flavour's propagator (default: every flavour)")
     e.add_argument("--no-cache", action="store_true")
     e.add_argument("--quiet", action="store_true")
+    e.add_argument("--set", action="append", default=[], metavar="KEY=VALUE",
+                   help="override a config key (dotted, e.g. interaction.omega_gev=0.45); repeatable")
+    w = sub.add_parser("show", help="print the summary of a run directory")
+    w.add_argument("dir", metavar="DIR")
     return p
 
 
@@ -101,7 +111,7 @@ def _fmt(x, spec=".6g"):
 def cmd_quark(args) -> int:
     from . import config
 
-    cfg = config.load(args.config)
+    cfg = config.load(args.config, args.set)
     flavour = cfg.flavours[0].name if args.flavour is None else args.flavour
     if flavour not in {f.name for f in cfg.flavours}:
         raise UsageError(f"--flavour {flavour!r}: not a flavour of {args.config}; one of "
@@ -163,7 +173,7 @@ def _default_out(cfg) -> Path:
 def cmd_run(args) -> int:
     from . import config
 
-    cfg = config.load(args.config)
+    cfg = config.load(args.config, args.set)
     final = Path(args.out) if args.out else _default_out(cfg)
     out = _stage(final, "--out" if args.out else "the default output directory")  # checked before any work
     _echo(cfg, config, args.quiet)
@@ -192,7 +202,7 @@ def cmd_run(args) -> int:
     return EXIT_OK
 
 
-def _config_of_source(source: str):
+def _config_of_source(source: str, args_set=()):
     """(config, meson masses of the run or None) of a run directory or a config file."""
     from . import config
 
@@ -208,11 +218,11 @@ def _config_of_source(source: str):
         except (OSError, KeyError, ValueError) as e:
             raise UsageError(f"SOURCE {source}: not a run directory of rlmeson (cannot read {path}: "
                              f"{type(e).__name__})") from None
-        cfg = config.from_dict(cfg_dict, source=str(path))
+        cfg = config.from_dict(config.apply_overrides(cfg_dict, args_set), source=str(path))
         masses = {m["name"]: (m.get("mass_gev"), tuple(m.get("quarks") or ())) for m in summ.get("mesons", [])}
         return cfg, masses
     if src.is_file():
-        return config.load(src), None
+        return config.load(src, args_set), None
     raise UsageError(f"SOURCE {source}: neither a run directory nor a config file")
 
 
@@ -241,7 +251,7 @@ def _region_mass(args, cfg, quark, masses) -> float:
 
 
 def cmd_export(args) -> int:
-    cfg, masses = _config_of_source(args.source)
+    cfg, masses = _config_of_source(args.source, args.set)
     if args.format == "csv" and args.what != "propagator":
         raise UsageError(f"--format csv: holds the propagator's real axis only; allowed with --what propagator "
                          f"(got --what {args.what})")
@@ -306,6 +316,33 @@ def _export(args, cfg, masses, out: Path) -> int:
             written.append(path)
     for p in written:
         print(p)
+    return EXIT_OK
+
+
+def cmd_show(args) -> int:
+    """The summary of a run directory, read from its summary.json (no numerics)."""
+    d = Path(args.dir)
+    try:
+        summ = json.loads((d / "summary.json").read_text(encoding="utf-8"))
+    except (OSError, ValueError) as e:
+        raise UsageError(f"DIR {d}: not a run directory of rlmeson (summary.json: {type(e).__name__})") from None
+    if not isinstance(summ, dict) or summ.get("package") != "rlmeson":
+        raise UsageError(f"DIR {d}: not a run directory of rlmeson (summary.json not written by rlmeson)")
+    print(f"{summ.get('config')}  (config hash {summ.get('config_hash')}, rlmeson {summ.get('package_version')})")
+    print(f"  {summ.get('regularisation_description', summ.get('regularisation'))}")
+    for name, q in (summ.get("quarks") or {}).items():
+        mm = q.get("max_bound_state_mass_gev")
+        print(f"  quark {name}: m(zeta) = {1e3 * q['current_mass_gev']:.6g} MeV, M(0) = "
+              f"{q['mass_function_at_zero_gev']:.6f} GeV, M_max = {'—' if mm is None else f'{mm:.4f} GeV'}")
+    conv = None
+    for m in summ.get("mesons") or []:
+        conv = m.get("decay_constant_convention")
+        err = m.get("mass_error_gev")
+        print(f"  {m['name']:<10}{m['channel']:<14}M = {m['mass_gev']:.6f} GeV"
+              f"{'' if err is None else f' ± {err:.1e}'}   f = {m['decay_constant_gev']:.6f} GeV"
+              f"{'' if m.get('validated', True) else '   (not validated: ' + str(m.get('validation_reason')) + ')'}")
+    if conv:
+        print(f"  decay constants: {conv}")
     return EXIT_OK
 
 
@@ -544,7 +581,8 @@ def _main(argv) -> int:
             args = _parser().parse_args(argv)
         except SystemExit as e:  # --help, --version
             return EXIT_OK if not e.code else EXIT_BAD_INPUT
-        return {"quark": cmd_quark, "run": cmd_run, "plot": cmd_plot, "export": cmd_export}[args.command](args)
+        return {"quark": cmd_quark, "run": cmd_run, "plot": cmd_plot, "export": cmd_export,
+                "show": cmd_show}[args.command](args)
     except (ConfigError, UsageError) as e:
         print(f"rlmeson: {e}", file=sys.stderr)
         return EXIT_BAD_INPUT

@@ -560,8 +560,52 @@ def parse(text: str, source: str | None = None) -> Config:
     return from_dict(d, source)
 
 
-def load(path) -> Config:
-    """A validated Config from a TOML file (a UTF-8 byte-order mark is allowed).
+def apply_overrides(d: dict, overrides) -> dict:
+    """A copy of the TOML-layout dict ``d`` with ``KEY=VALUE`` overrides applied: KEY is
+    dotted (``interaction.omega_gev``, ``quarks.l.current_mass_gev``, ``mesons.rho.eta``
+    by meson name or ``mesons.2.eta`` counted from 1); VALUE is a TOML value (a bare word
+    that is not one is taken as a string).  The result is validated like the file."""
+    import copy
+
+    out = copy.deepcopy(d)
+    for item in overrides or ():
+        key, sep, raw = str(item).partition("=")
+        key = key.strip()
+        if not sep or not key or any(not part for part in key.split(".")):
+            raise ConfigError("--set", item, "KEY=VALUE with a dotted KEY, e.g. interaction.omega_gev=0.45")
+        try:
+            value = tomllib.loads(f"v = {raw.strip()}")["v"]
+        except ValueError:
+            value = raw.strip()
+        parts = key.split(".")
+        node = out
+        for i, part in enumerate(parts[:-1]):
+            if part == "mesons" and i == 0:
+                mesons = node.get("mesons")
+                if not isinstance(mesons, list) or len(parts) < 3:
+                    raise ConfigError(f"--set {key}", raw, "mesons.<name or number from 1>.<key> of a listed meson")
+                sel = parts[1]
+                hit = [m for m in mesons if isinstance(m, dict) and m.get("name") == sel]
+                if not hit and sel.isdigit() and 1 <= int(sel) <= len(mesons):
+                    hit = [mesons[int(sel) - 1]]
+                if not hit:
+                    raise ConfigError(f"--set {key}", raw, "mesons.<name or number from 1>.<key> of a listed meson")
+                node = hit[0]
+                rest = parts[2:-1]
+                for r in rest:
+                    node = node.setdefault(r, {})
+                break
+            nxt = node.setdefault(part, {})
+            if not isinstance(nxt, dict):
+                raise ConfigError(f"--set {key}", raw, f"a key inside the table {'.'.join(parts[:i + 1])}")
+            node = nxt
+        node[parts[-1]] = value
+    return out
+
+
+def load(path, overrides=()) -> Config:
+    """A validated Config from a TOML file (a UTF-8 byte-order mark is allowed), with
+    ``KEY=VALUE`` overrides (``apply_overrides``) applied before validation.
 
     A relative ``[output] cache_dir`` is taken relative to the file's directory."""
     try:
@@ -570,7 +614,14 @@ def load(path) -> Config:
         raise ConfigError("<file>", str(path), "a UTF-8 text file") from None
     except OSError as e:
         raise ConfigError("<file>", str(path), f"a readable TOML file ({e.strerror or type(e).__name__})") from None
-    cfg = parse(text, str(path))
+    if overrides:
+        try:
+            d = tomllib.loads(text)
+        except (ValueError, RecursionError) as e:
+            raise ConfigError("<file>", str(path), f"valid TOML ({e})") from None
+        cfg = from_dict(apply_overrides(d, overrides), str(path))
+    else:
+        cfg = parse(text, str(path))
     cache = cfg.output.cache_dir
     if cache is not None:
         where = Path(cache).expanduser()

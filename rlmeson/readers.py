@@ -238,3 +238,44 @@ def open_propagator(path) -> Propagator:
 
 def open_amplitude(path) -> Amplitude:
     return Amplitude(path)
+
+
+class Run:
+    """A run directory written by ``rlmeson run``: its summary, resolved config and files."""
+
+    def __init__(self, path):
+        self.path = Path(path)
+        try:
+            self.summary = json.loads((self.path / "summary.json").read_text(encoding="utf-8"))
+        except (OSError, ValueError) as e:
+            raise ValueError(f"{path}: not a run directory of rlmeson (summary.json: {type(e).__name__})") from None
+        if not isinstance(self.summary, dict) or self.summary.get("package") != "rlmeson":
+            raise ValueError(f"{path}: not a run directory of rlmeson")
+        self.quarks = dict(self.summary.get("quarks") or {})
+        self.mesons = {m["name"]: m for m in self.summary.get("mesons") or []}
+
+    @property
+    def config(self):
+        """The resolved config of the run (from results.h5), as a ``config.Config``."""
+        import h5py
+
+        from . import config
+
+        with h5py.File(self.path / "results.h5", "r") as h:
+            return config.from_dict(json.loads(h.attrs["config"]), source=str(self.path / "results.h5"))
+
+    def propagator(self, flavour: str) -> Propagator:
+        """The run's real-axis propagator file of ``flavour`` (``rlmeson export`` adds the
+        complex region)."""
+        return Propagator(self.path / f"propagator_{flavour}.nc")
+
+    def amplitude(self, meson: str) -> Amplitude:
+        return Amplitude(self.path / f"amplitude_{meson}.nc")
+
+    def __repr__(self) -> str:
+        return (f"Run({str(self.path)!r}: {self.summary.get('config')}, quarks {list(self.quarks)}, "
+                f"mesons {list(self.mesons)})")
+
+
+def open_run(path) -> Run:
+    return Run(path)
