@@ -93,15 +93,61 @@ def _positive_gev(text: str) -> float:
     return v
 
 
-def _progress(quiet: bool):
+def _progress(quiet: bool, log: list | None = None):
+    """A progress printer (stderr, unless quiet); every line also goes to ``log``."""
     t0 = time.perf_counter()
 
     def say(msg: str) -> None:
         _check_terminated()  # a SIGTERM whose exception was swallowed (see _terminate)
+        line = f"[{time.perf_counter() - t0:7.1f} s] {msg}"
+        if log is not None:
+            log.append(line)
         if not quiet:
-            print(f"[{time.perf_counter() - t0:7.1f} s] {msg}", file=sys.stderr, flush=True)
+            print(line, file=sys.stderr, flush=True)
 
     return say
+
+
+def _manifest(cfg, result, argv) -> dict:
+    """What produced a run: config hash, package version, platform, timings, git commit."""
+    import platform
+    import subprocess
+    from datetime import datetime, timezone
+    from importlib import metadata
+
+    from . import __version__
+
+    def version(pkg):
+        try:
+            return metadata.version(pkg)
+        except metadata.PackageNotFoundError:
+            return None
+
+    commit = None
+    try:
+        out = subprocess.run(["git", "-C", str(Path(__file__).resolve().parent), "rev-parse", "HEAD"],
+                             capture_output=True, text=True, timeout=5)
+        if out.returncode == 0:
+            commit = out.stdout.strip()
+            dirty = subprocess.run(["git", "-C", str(Path(__file__).resolve().parent), "status", "--porcelain",
+                                    "--", "."], capture_output=True, text=True, timeout=5).stdout.strip()
+            commit += "+uncommitted changes" if dirty else ""
+    except (OSError, subprocess.SubprocessError):
+        pass
+    return {
+        "package": "rlmeson", "package_version": __version__, "config": cfg.name, "config_hash": cfg.hash(),
+        "command": ["rlmeson", *map(str, argv)] if argv is not None else None,
+        "created_utc": datetime.now(timezone.utc).isoformat(timespec="seconds"),
+        "git_commit": commit,
+        "platform": {"python": platform.python_version(), "machine": platform.machine(),
+                     "system": platform.system(), **{p: version(p) for p in ("numpy", "scipy", "jax", "h5py",
+                                                                            "xarray", "h5netcdf")}},
+        "timings_seconds": {"total": result.seconds,
+                            "quarks": {n: q.seconds for n, q in result.quarks.items()},
+                            "mesons": {m.name: m.seconds for m in result.mesons}},
+        "from_cache": {"quarks": {n: q.from_cache for n, q in result.quarks.items()},
+                       "mesons": {m.name: m.from_cache for m in result.mesons}},
+    }
 
 
 def _fmt(x, spec=".6g"):
@@ -181,10 +227,14 @@ def cmd_run(args) -> int:
     from . import exchange, export, pipeline, plots  # the numerics (JAX) only after the input is checked
     from .store import atomic_write_text
     store = pipeline.store_of(cfg, not args.no_cache)
-    say = _progress(args.quiet)
+    log: list[str] = []
+    say = _progress(args.quiet, log)
     result = pipeline.run(cfg, store, say)
     summ = result.summary()
     say(f"writing {final}/")
+    atomic_write_text(out / "config.json", json.dumps(cfg.to_dict(), indent=2, default=str) + "\n")
+    atomic_write_text(out / "manifest.json", json.dumps(_manifest(cfg, result, getattr(args, "argv", None)),
+                                                        indent=2, allow_nan=False) + "\n")
     export.write_results_h5(result, out / "results.h5")
     radial = pipeline.bse_grid_of(cfg).radial(pipeline.kernel_of(cfg).q2_max)
     for name, q in result.quarks.items():
@@ -195,6 +245,7 @@ def cmd_run(args) -> int:
     # the figures are drawn from results.h5, as `rlmeson plot` redraws them
     summ["figures"] = [f.name for f in plots.draw_runs([plots.read_run(out / "results.h5")], out)]
     atomic_write_text(out / "summary.json", json.dumps(summ, indent=2, allow_nan=False) + "\n")
+    atomic_write_text(out / "run.log", "\n".join(log) + "\n")
     _check_terminated()
     _move_into_place(out, final)
     print(_table(result))
@@ -579,6 +630,7 @@ def _main(argv) -> int:
     try:
         try:
             args = _parser().parse_args(argv)
+            args.argv = list(sys.argv[1:] if argv is None else argv)
         except SystemExit as e:  # --help, --version
             return EXIT_OK if not e.code else EXIT_BAD_INPUT
         return {"quark": cmd_quark, "run": cmd_run, "plot": cmd_plot, "export": cmd_export,

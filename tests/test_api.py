@@ -60,3 +60,21 @@ def test_api_run_reproduces_the_command_line_run(figure_run):
     got = {m["name"]: m for m in res.summary()["mesons"]}
     for name, m in r.mesons.items():
         assert got[name]["mass_gev"] == m["mass_gev"] and got[name]["decay_constant_gev"] == m["decay_constant_gev"]
+
+
+def test_run_directory_keeps_config_manifest_and_log(figure_run):
+    """A run directory can be reproduced and audited from its own files: the resolved
+    config (same hash), a manifest of what produced it, and the progress log."""
+    from rlmeson import config
+
+    run_dir, _ = figure_run
+    summ = json.loads((run_dir / "summary.json").read_text())
+    cfg = config.from_dict(json.loads((run_dir / "config.json").read_text()))
+    assert cfg.hash() == summ["config_hash"]
+    man = json.loads((run_dir / "manifest.json").read_text())
+    assert man["config_hash"] == summ["config_hash"] and man["package_version"] == summ["package_version"]
+    assert man["platform"]["numpy"] and man["timings_seconds"]["total"] > 0
+    assert set(man["timings_seconds"]["mesons"]) == {m["name"] for m in summ["mesons"]}
+    assert man["command"][:2] == ["rlmeson", "run"]
+    log = (run_dir / "run.log").read_text().splitlines()
+    assert log and all(line.startswith("[") for line in log)
