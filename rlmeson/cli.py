@@ -5,6 +5,7 @@
     rlmeson plot DIR [DIR ...] [--out DIR] [--format png|pdf|svg] [--uncut]
     rlmeson export SOURCE [--what ...] [--format ...] [--out DIR] [--region-mass GEV] [--flavour NAME]
     rlmeson show DIR
+    rlmeson scan CONFIG [--out DIR] [--workers N]
     (quark, run and export take --set KEY=VALUE overrides of config keys)
 
 Exit codes: 0 success, 2 bad input (one line naming the key, the value and what is
@@ -78,6 +79,14 @@ def _parser() -> argparse.ArgumentParser:
     e.add_argument("--quiet", action="store_true")
     e.add_argument("--set", action="append", default=[], metavar="KEY=VALUE",
                    help="override a config key (dotted, e.g. interaction.omega_gev=0.45); repeatable")
+    c = sub.add_parser("scan", help="run the config over the axes of its [scan] table")
+    c.add_argument("config")
+    c.add_argument("--out", metavar="DIR", help="output directory (default runs/<name>-scan-<hash>)")
+    c.add_argument("--workers", type=int, default=1, metavar="N", help="worker processes (default 1)")
+    c.add_argument("--no-cache", action="store_true")
+    c.add_argument("--quiet", action="store_true")
+    c.add_argument("--set", action="append", default=[], metavar="KEY=VALUE",
+                   help="override a config key of every point; repeatable")
     w = sub.add_parser("show", help="print the summary of a run directory")
     w.add_argument("dir", metavar="DIR")
     return p
@@ -370,6 +379,58 @@ def _export(args, cfg, masses, out: Path) -> int:
     return EXIT_OK
 
 
+def cmd_scan(args) -> int:
+    """Every point of the [scan] axes through the pipeline; one Dataset, figures, a log."""
+    import hashlib
+
+    from . import scan as scanning
+
+    sc = scanning.load(args.config, args.set)
+    if not 1 <= args.workers <= 64:
+        raise UsageError(f"--workers {args.workers}: allowed 1 to 64")
+    tag = hashlib.sha256(json.dumps([sc.base, [a.__dict__ for a in sc.axes], sc.error_bar], sort_keys=True,
+                                    default=str).encode()).hexdigest()[:8]
+    final = Path(args.out) if args.out else Path("runs") / f"{sc.name}-scan-{tag}"
+    out = _stage(final, "--out" if args.out else "the default output directory")
+    first = sc.config_at(sc.points()[0])
+    _check_store(first, args.no_cache)
+    from . import plots
+    from .store import atomic_write_text
+
+    log: list[str] = []
+    say = _progress(args.quiet, log)
+    n = len(sc.points())
+    say(f"scan of {sc.name}: {n} points over {', '.join(a.key for a in sc.axes)}; {args.workers} worker(s)")
+
+    def each(i, total, r):
+        where = ", ".join(f"{a.key} = {v:g}" for a, v in zip(sc.axes, r.point))
+        say(f"point {i}/{total} ({where}): {r.status}{'' if r.status == 'ok' else ' — ' + r.message} "
+            f"[{r.seconds:.1f} s]")
+
+    results = scanning.run(sc, workers=args.workers, cache=not args.no_cache, progress=each)
+    ds = scanning.dataset(sc, results)
+    from . import exchange
+
+    exchange.write_netcdf(ds, out / "scan.nc")
+    figs = plots.scan_figures(ds, out)
+    points = [{"point": dict(zip((a.key for a in sc.axes), r.point)), "config_hash": r.config_hash,
+               "status": r.status, "message": r.message, "seconds": r.seconds,
+               "from_cache": None if r.summary is None else (
+                   all(q.get("from_cache") for q in r.summary["quarks"].values())
+                   and all(m.get("from_cache") for m in r.summary["mesons"])),
+               "mesons": None if r.summary is None else {m["name"]: {k: m.get(k) for k in scanning.MESON_KEYS}
+                                                         for m in r.summary["mesons"]}} for r in results]
+    atomic_write_text(out / "scan.json", json.dumps({"package": "rlmeson", "scan": sc.name,
+                                                     "axes": [a.key for a in sc.axes], "points": points,
+                                                     "figures": [f.name for f in figs]}, indent=2,
+                                                    allow_nan=False, default=str) + "\n")
+    atomic_write_text(out / "run.log", "\n".join(log) + "\n")
+    _move_into_place(out, final)
+    failed = sum(r.status != "ok" for r in results)
+    print(f"{n - failed} of {n} points ok; outputs in {final}/ (scan.nc, scan.json, figures)")
+    return EXIT_OK
+
+
 def cmd_show(args) -> int:
     """The summary of a run directory, read from its summary.json (no numerics)."""
     d = Path(args.dir)
@@ -634,7 +695,7 @@ def _main(argv) -> int:
         except SystemExit as e:  # --help, --version
             return EXIT_OK if not e.code else EXIT_BAD_INPUT
         return {"quark": cmd_quark, "run": cmd_run, "plot": cmd_plot, "export": cmd_export,
-                "show": cmd_show}[args.command](args)
+                "show": cmd_show, "scan": cmd_scan}[args.command](args)
     except (ConfigError, UsageError) as e:
         print(f"rlmeson: {e}", file=sys.stderr)
         return EXIT_BAD_INPUT

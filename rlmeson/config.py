@@ -374,7 +374,10 @@ def _fields(cls) -> tuple[str, ...]:
 
 
 TOP_KEYS = ("name", "description", "interaction", "kernel", "renormalisation", "quarks",
-            "mesons", "numerics", "output")
+            "mesons", "numerics", "output", "scan")
+#: Tables read by the workflows, not by a single run (``scan``): accepted here, validated
+#: there, and no part of a run's physics or hash.
+WORKFLOW_KEYS = ("scan",)
 MESON_KEYS = _fields(MesonConfig)
 
 
@@ -527,6 +530,7 @@ def _cross_checks(c: Config) -> None:
 def from_dict(d: dict, source: str | None = None) -> Config:
     """A validated Config from a nested dict of the TOML layout."""
     top = _table(d, "", TOP_KEYS)
+    top = {k: v for k, v in top.items() if k not in WORKFLOW_KEYS}
     numerics = _sub(top, "", "numerics", ("gap", "bse"))
     name = _take(top, "", "name", MISSING, _pattern, NAME_RE)
     flavours = _flavours(top)

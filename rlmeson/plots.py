@@ -368,3 +368,35 @@ def draw_runs(runs: list[RunData], out_dir, fmt: str = "png", cut_above_regulato
         files.append(_save(eigenvalue_spectrum_figure(ms), out / f"eigenvalues_{n}.{fmt}"))
         files.append(_save(amplitudes_figure(ms), out / f"amplitudes_{n}.{fmt}"))
     return files
+
+
+def scan_figures(ds, out_dir, fmt: str = "png") -> list[Path]:
+    """One figure per observable of a scan Dataset (``scan.dataset``) against the first
+    axis, a line per value of the second (if any); failed points are gaps."""
+    plt = _plt()
+    out_dir = Path(out_dir)
+    dims = [d for d in ds["status"].dims]
+    x = dims[0]
+    files = []
+    for name, var in ds.data_vars.items():
+        if name in ("status", "message", "config_hash") or not np.isfinite(var.values).any():
+            continue
+        fig, ax = plt.subplots(figsize=(5.5, 4))
+        if len(dims) == 1:
+            ax.plot(ds[x].values, var.values, marker="o", ms=3)
+        else:
+            other = dims[1]
+            for j, v in enumerate(ds[other].values):
+                sel = var.isel({other: j})
+                if sel.ndim > 1:               # further axes: their first value
+                    sel = sel.isel({d: 0 for d in sel.dims if d != x})
+                ax.plot(ds[x].values, sel.values, marker="o", ms=3, label=f"{ds[other].attrs['long_name']} = {v:g}")
+            ax.legend(fontsize=7)
+        xu = ds[x].attrs.get("units", "1")
+        ax.set_xlabel(f"{ds[x].attrs['long_name']}" + ("" if xu == "1" else f" [{xu}]"))
+        vu = var.attrs.get("units", "1")
+        ax.set_ylabel(name + ("" if vu == "1" else f" [{vu}]"))
+        ax.set_title(f"{ds.attrs.get('title', 'scan')}", fontsize=9)
+        tidy(ax)
+        files.append(_save(fig, out_dir / f"scan_{name}.{fmt}"))
+    return files
