@@ -375,7 +375,14 @@ def locate(sol: GapSolution, direct_max_mass: float | None = None, eta: float = 
             break
         mass = 0.8 * near.max_mass(eta)
     check = None
-    if near is not None:
-        check = singularities.check_with_shifted(
-            sol, singularities.Singularity(s_gev2=near.s_gev2, residual=0.0), eta, solver=solver)
+    # the nearest zero, checked; only if the shifted solution is regular there (the zero is
+    # the approximant's artefact) the next one is tried — never past a zero whose check
+    # could not be made (at most two checks: each is two shifted solves)
+    for cand in sorted(plane.singularities, key=lambda x: x.max_mass(eta))[:2]:
+        c = singularities.check_with_shifted(
+            sol, singularities.Singularity(s_gev2=cand.s_gev2, residual=0.0), eta, solver=solver)
+        if near is cand or (c is not None and c < CONFIRMED):
+            near, check = cand, c
+        if c is None or c < CONFIRMED:
+            break
     return Located(plane=plane, nearest=near, check=check, seconds=time.perf_counter() - t0)
