@@ -46,6 +46,21 @@ def _attr(h, name, default=None):
     return v
 
 
+def _read(path, quantity: str, what: str):
+    """(open h5py file, its global attributes) of an exchange file of this ``quantity``."""
+    h = _open(path)
+    got = _attr(h, "quantity")
+    if got != quantity:
+        h.close()
+        raise ValueError(f"{path}: not {what} file (quantity = {got!r})")
+    return h, {k: _attr(h, k) for k in h.attrs}
+
+
+def _panels(attrs, edges: str, order: str) -> qd.RadialGrid:
+    """The radial panel grid recorded in a file's attributes."""
+    return qd.RadialGrid(tuple(np.asarray(attrs[edges]).tolist()), int(attrs[order]))
+
+
 def _complex(h, name):
     return np.asarray(h[f"{name}_re"][()]) + 1j * np.asarray(h[f"{name}_im"][()])
 
@@ -84,15 +99,12 @@ class Propagator:
     """A dressed quark read from an exchange file (see the module doc)."""
 
     def __init__(self, path):
-        with _open(path) as h:
-            if _attr(h, "quantity") != "quark_propagator":
-                raise ValueError(f"{path}: not a propagator file (quantity = {_attr(h, 'quantity')!r})")
+        h, self.attrs = _read(path, "quark_propagator", "a propagator")
+        with h:
             self.path = str(path)
-            self.attrs = {k: _attr(h, k) for k in h.attrs}
             self.p2 = np.asarray(h["p2"][()])
             self._real = {k: np.asarray(h[k][()]) for k in ("A", "B")}
-            self._radial = qd.RadialGrid(tuple(np.asarray(self.attrs["real_axis_ln_p2_panel_edges"]).tolist()),
-                                         int(self.attrs["real_axis_panel_order"]))
+            self._radial = _panels(self.attrs, "real_axis_ln_p2_panel_edges", "real_axis_panel_order")
             self.has_region = "region_A_re" in h
             if self.has_region:
                 self.region_mass_gev = float(self.attrs["region_mass_gev"])
@@ -101,8 +113,7 @@ class Propagator:
                 self._rz = np.asarray(h["region_z"][()])
                 self._rq2 = np.asarray(h["region_q2"][()])
                 self._rA, self._rB = _complex(h, "region_A"), _complex(h, "region_B")
-                self._rradial = qd.RadialGrid(tuple(np.asarray(self.attrs["region_ln_q2_panel_edges"]).tolist()),
-                                              int(self.attrs["region_panel_order"]))
+                self._rradial = _panels(self.attrs, "region_ln_q2_panel_edges", "region_panel_order")
                 self.approximants = {f: Rational(_complex(h, f"aaa_{f}_support"), _complex(h, f"aaa_{f}_values"),
                                                  _complex(h, f"aaa_{f}_weights")) for f in ("A", "B")}
                 self.singularities = _complex(h, "singularity_p2")
@@ -205,18 +216,15 @@ class Amplitude:
     """A normalised Bethe–Salpeter amplitude read from an exchange file."""
 
     def __init__(self, path):
-        with _open(path) as h:
-            if _attr(h, "quantity") != "bethe_salpeter_amplitude":
-                raise ValueError(f"{path}: not an amplitude file (quantity = {_attr(h, 'quantity')!r})")
+        h, self.attrs = _read(path, "bethe_salpeter_amplitude", "an amplitude")
+        with h:
             self.path = str(path)
-            self.attrs = {k: _attr(h, k) for k in h.attrs}
             self.q2 = np.asarray(h["q2"][()])
             self.z = np.asarray(h["z"][()])
             self.moments = _complex(h, "moments")          # (covariant, m, q)
             labels = h["covariant_label"][()]
             self.covariants = [x.decode() if isinstance(x, bytes) else str(x) for x in labels]
-            self._radial = qd.RadialGrid(tuple(np.asarray(self.attrs["ln_q2_panel_edges"]).tolist()),
-                                         int(self.attrs["panel_order"]))
+            self._radial = _panels(self.attrs, "ln_q2_panel_edges", "panel_order")
         self.mass_gev = float(self.attrs["mass_gev"])
         self.summary = json.loads(self.attrs.get("meson_summary", "{}"))
 

@@ -185,7 +185,7 @@ class PointResult:
     seconds: float
 
 
-def run_point(scan: Scan, point, cache: bool = True, cache_dir: str | None = None) -> PointResult:
+def run_point(scan: Scan, point, cache: bool = True) -> PointResult:
     """One point through the pipeline (a failure is recorded, not raised)."""
     from . import pipeline
 
@@ -283,5 +283,5 @@ def _put(data, units, name, key, value, shape, ix):
     if name not in data:
         data[name] = np.full(shape, np.nan)
         units[name] = _units(key)
-    if isinstance(value, (int, float)) and not isinstance(value, bool) and value is not None:
+    if isinstance(value, (int, float)) and not isinstance(value, bool):
         data[name][ix] = float(value)

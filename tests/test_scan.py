@@ -127,3 +127,26 @@ values = [0.004]
     assert code == 0
     pts = json.loads((tmp_path / "b" / "scan.json").read_text())["points"]
     assert pts[0]["status"] == "failed" and "mass_guess_gev" in pts[0]["message"]
+
+
+def test_worker_processes_give_the_same_numbers(tmp_path):
+    """`--workers 2` computes the points in separate processes (own caches) and gives the
+    numbers of the in-process run to rounding: measured 1e-14 in M and 5e-11 in f (the
+    order of floating-point sums differs between processes; f sees it through the
+    finite-difference slope of its normalisation), so 1e-9."""
+    text = BASE + """
+[scan]
+[[scan.axis]]
+key = "quarks.l.current_mass_gev"
+values = [0.002, 0.004]
+"""
+    results = {}
+    for workers in (1, 2):
+        cfg = tmp_path / f"w{workers}.toml"
+        cfg.write_text(text.replace("[scan]", f"[output]\ncache_dir = \"{tmp_path / f'store{workers}'}\"\n[scan]"))
+        code, _, err = run_cli(["scan", cfg, "--workers", workers, "--out", tmp_path / f"o{workers}", "--quiet"])
+        assert code == 0, err
+        with xr.open_dataset(tmp_path / f"o{workers}" / "scan.nc", engine="h5netcdf") as ds:
+            results[workers] = ds["pion_mass_gev"].values.copy(), ds["pion_decay_constant_gev"].values.copy()
+    for a, b in zip(results[1], results[2]):
+        assert np.allclose(a, b, rtol=1e-9, atol=0)
