@@ -43,6 +43,41 @@ def run(cfg, cache: bool = True, progress=None):
     return pipeline.run(cfg, pipeline.store_of(cfg, cache), **kw)
 
 
+def scan(cfg, workers: int | None = 1, dask: str | None = None, cache: bool = True, overrides=(),
+         out=None, progress=None):
+    """Run the ``[scan]`` axes of ``cfg`` (a path, a dict of the TOML layout, or a
+    ``rlmeson.scans.Scan``); returns a ``ScanResult`` (``.dataset`` the xarray Dataset over
+    the axes, ``.results`` every point with its status, ``.failed``).  ``workers``: 1 in
+    this process, N worker processes, None one per core; ``dask``: a scheduler address or
+    ``"local"``.  ``out``: also write scan.nc, scan.json and the figures there."""
+    from pathlib import Path
+
+    from . import scans as _scan
+
+    if isinstance(cfg, dict):
+        sc = _scan.from_config_dict(cfg, overrides)
+    elif isinstance(cfg, _scan.Scan):
+        sc = cfg
+    else:
+        sc = _scan.load(cfg, overrides)
+    res = _scan.execute(sc, workers=workers, dask=dask, cache=cache, progress=progress)
+    if out is not None:
+        Path(out).mkdir(parents=True, exist_ok=True)
+        res.write(out)
+    return res
+
+
+def __getattr__(name):
+    # ``rlmeson.fit`` is the module rlmeson/fit.py, callable as the API function
+    # ``rlmeson.fit(cfg, ...)`` (``rlmeson.fit.fit``), imported on first use; the module
+    # name stays free for ``rlmeson.fit.tune_current_mass`` and the rest of it.
+    if name == "fit":
+        import importlib
+
+        return importlib.import_module(f"{__name__}.fit")
+    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
+
+
 def open_run(path):
     """A run directory written by ``rlmeson run``: ``.summary``, ``.quarks``, ``.mesons``,
     ``.config``, ``.propagator(flavour)``, ``.amplitude(meson)``."""

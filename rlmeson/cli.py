@@ -5,7 +5,8 @@
     rlmeson plot DIR [DIR ...] [--out DIR] [--format png|pdf|svg] [--uncut]
     rlmeson export SOURCE [--what ...] [--format ...] [--out DIR] [--region-mass GEV] [--flavour NAME]
     rlmeson show DIR
-    rlmeson scan CONFIG [--out DIR] [--workers N]
+    rlmeson fit CONFIG [--out DIR] [--quiet] [--no-cache]
+    rlmeson scan CONFIG [--out DIR] [--workers N] [--dask ADDRESS|local]
     (quark, run and export take --set KEY=VALUE overrides of config keys)
 
 Exit codes: 0 success, 2 bad input (one line naming the key, the value and what is
@@ -15,9 +16,16 @@ Set RLMESON_DEBUG=1 to see tracebacks.
 
 from __future__ import annotations
 
+import os
+
+# Our dense linear algebra is small (ARPACK on vectors of a few thousand entries): BLAS
+# threads only compete with JAX's own thread pool; measured 1.5–2× faster eigen-solves
+# with one BLAS thread on 2 cores.  Set before NumPy loads its BLAS; a user's setting wins.
+for _var in ("OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
+    os.environ.setdefault(_var, "1")
+
 import argparse
 import json
-import os
 import shutil
 import signal
 import sys
@@ -82,12 +90,23 @@ def _parser() -> argparse.ArgumentParser:
     c = sub.add_parser("scan", help="run the config over the axes of its [scan] table")
     c.add_argument("config")
     c.add_argument("--out", metavar="DIR", help="output directory (default runs/<name>-scan-<hash>)")
-    c.add_argument("--workers", type=int, default=1, metavar="N", help="worker processes (default 1)")
+    c.add_argument("--workers", type=int, default=None, metavar="N",
+                   help="worker processes (default: one per core; 1: in this process); with --dask local, "
+                        "the LocalCluster's workers")
+    c.add_argument("--dask", metavar="ADDRESS", help="run the points on a dask.distributed scheduler at ADDRESS, "
+                                                     "or 'local' for a LocalCluster (needs rlmeson[dask])")
     c.add_argument("--no-cache", action="store_true")
     c.add_argument("--quiet", action="store_true")
     c.add_argument("--set", action="append", default=[], metavar="KEY=VALUE",
                    help="override a config key of every point; repeatable")
-    w = sub.add_parser("show", help="print the summary of a run directory")
+    f = sub.add_parser("fit", help="fit the parameters of the config's [fit] table to its targets")
+    f.add_argument("config")
+    f.add_argument("--out", metavar="DIR", help="output directory (default runs/<name>-fit-<hash>)")
+    f.add_argument("--no-cache", action="store_true")
+    f.add_argument("--quiet", action="store_true", help="no progress lines")
+    f.add_argument("--set", action="append", default=[], metavar="KEY=VALUE",
+                   help="override a config key (dotted, e.g. fit.max_iterations=10); repeatable")
+    w = sub.add_parser("show", help="print the summary of a run or scan directory")
     w.add_argument("dir", metavar="DIR")
     return p
 
@@ -153,9 +172,9 @@ def _manifest(cfg, result, argv) -> dict:
                                                                             "xarray", "h5netcdf")}},
         "timings_seconds": {"total": result.seconds,
                             "quarks": {n: q.seconds for n, q in result.quarks.items()},
-                            "mesons": {m.name: m.seconds for m in result.mesons}},
+                            "mesons": {m.name: m.seconds for m in [*result.mesons, *result.extrapolated]}},
         "from_cache": {"quarks": {n: q.from_cache for n, q in result.quarks.items()},
-                       "mesons": {m.name: m.from_cache for m in result.mesons}},
+                       "mesons": {m.name: m.from_cache for m in [*result.mesons, *result.extrapolated]}},
     }
 
 
@@ -383,57 +402,113 @@ def cmd_scan(args) -> int:
     """Every point of the [scan] axes through the pipeline; one Dataset, figures, a log."""
     import hashlib
 
-    from . import scan as scanning
+    from . import scans as scanning
+    from .progress import bar
 
     sc = scanning.load(args.config, args.set)
-    if not 1 <= args.workers <= 64:
+    if args.workers is not None and not 1 <= args.workers <= 64:
         raise UsageError(f"--workers {args.workers}: allowed 1 to 64")
+    if args.dask is not None:
+        try:
+            import dask.distributed  # noqa: F401
+        except ImportError:
+            raise UsageError(f"--dask {args.dask}: needs dask.distributed (pip install 'rlmeson[dask]')") from None
     tag = hashlib.sha256(json.dumps([sc.base, [a.__dict__ for a in sc.axes], sc.error_bar], sort_keys=True,
                                     default=str).encode()).hexdigest()[:8]
     final = Path(args.out) if args.out else Path("runs") / f"{sc.name}-scan-{tag}"
     out = _stage(final, "--out" if args.out else "the default output directory")
     first = sc.config_at(sc.points()[0])
     _check_store(first, args.no_cache)
-    from . import plots
-    from .store import atomic_write_text
+    from . import executors
 
     log: list[str] = []
     say = _progress(args.quiet, log)
     n = len(sc.points())
-    say(f"scan of {sc.name}: {n} points over {', '.join(a.key for a in sc.axes)}; {args.workers} worker(s)")
+    ex = executors.make(args.workers, args.dask)
+    say(f"scan of {sc.name}: {n} points over {', '.join(a.key for a in sc.axes)}; {ex.description}")
+    with ex, bar(n, "point", args.quiet, log) as b:
+        def each(i, total, r):
+            _check_terminated()
+            where = ", ".join(f"{a.key} = {v:g}" for a, v in zip(sc.axes, r.point))
+            how = "failed — " + r.message if r.status != "ok" else (
+                "ok, from the store" if r.from_cache else f"ok, computed {', '.join(r.computed)}")
+            b.step(f"#{r.index + 1} ({where}): {how} [{r.seconds:.1f} s]")
 
-    def each(i, total, r):
-        where = ", ".join(f"{a.key} = {v:g}" for a, v in zip(sc.axes, r.point))
-        say(f"point {i}/{total} ({where}): {r.status}{'' if r.status == 'ok' else ' — ' + r.message} "
-            f"[{r.seconds:.1f} s]")
+        res = scanning.execute(sc, cache=not args.no_cache, progress=each, executor=ex)
+    if "chiral_condensate_gev3" in res.dataset.attrs:
+        say(f"GMOR: chiral condensate -<qbar q>^0 = {res.dataset.attrs['chiral_condensate_gev3']:.6g} GeV^3 at "
+            f"zeta = {res.dataset.attrs['gmor_renormalisation_point_gev']:g} GeV")
+    from .store import atomic_write_text
 
-    results = scanning.run(sc, workers=args.workers, cache=not args.no_cache, progress=each)
-    ds = scanning.dataset(sc, results)
-    from . import exchange
-
-    exchange.write_netcdf(ds, out / "scan.nc")
-    figs = plots.scan_figures(ds, out)
-    points = [{"point": dict(zip((a.key for a in sc.axes), r.point)), "config_hash": r.config_hash,
-               "status": r.status, "message": r.message, "seconds": r.seconds,
-               "from_cache": None if r.summary is None else (
-                   all(q.get("from_cache") for q in r.summary["quarks"].values())
-                   and all(m.get("from_cache") for m in r.summary["mesons"])),
-               "mesons": None if r.summary is None else {m["name"]: {k: m.get(k) for k in scanning.MESON_KEYS}
-                                                         for m in r.summary["mesons"]}} for r in results]
-    atomic_write_text(out / "scan.json", json.dumps({"package": "rlmeson", "scan": sc.name,
-                                                     "axes": [a.key for a in sc.axes], "points": points,
-                                                     "figures": [f.name for f in figs]}, indent=2,
-                                                    allow_nan=False, default=str) + "\n")
+    res.write(out, {"command": ["rlmeson", *map(str, args.argv)], "package_version": __version__})
     atomic_write_text(out / "run.log", "\n".join(log) + "\n")
+    _check_terminated()
     _move_into_place(out, final)
-    failed = sum(r.status != "ok" for r in results)
+    failed = len(res.failed)
     print(f"{n - failed} of {n} points ok; outputs in {final}/ (scan.nc, scan.json, figures)")
+    return EXIT_OK
+
+
+def cmd_fit(args) -> int:
+    """Least squares of the [fit] parameters on its targets; fit.json, the fitted config,
+    a report and a figure."""
+    from . import config, fitspec
+
+    spec = fitspec.load(args.config, args.set)
+    start = spec.config_at(spec.start)
+    final = Path(args.out) if args.out else Path("runs") / f"{spec.name}-fit-{start.hash()[:8]}"
+    out = _stage(final, "--out" if args.out else "the default output directory")  # checked before any work
+    _echo(start, config, args.quiet)
+    _check_store(start, args.no_cache)
+    from . import fit, pipeline
+    from .progress import bar
+    from .store import atomic_write_text
+
+    store = pipeline.store_of(start, not args.no_cache)
+    log: list[str] = []
+    with bar(None, "fit step", args.quiet, log) as b:
+        b.note(f"fit of {spec.name}: " + ", ".join(p.key for p in spec.parameters) + " to "
+               + ", ".join(t.name for t in spec.targets) + f"; derivatives {spec.derivatives}")
+
+        def say(msg):
+            _check_terminated()
+            b.step(msg.split(": ", 1)[-1] if msg.startswith("step ") else msg)
+
+        try:
+            result = fit.run_fit(spec, store, say)
+        except fit.FitFailed as e:
+            raise RuntimeError(str(e)) from None
+    fj = fit.write_outputs(result, out)
+    atomic_write_text(out / "fit.log", "\n".join(log) + "\n")
+    _check_terminated()
+    _move_into_place(out, final)
+    print("\n".join(fit.report_lines(fj)))
+    print(f"\noutputs in {final}/ (fit.json, {fit.FITTED_CONFIG}, {fit.REPORT}, {fit.FIGURE}, fit.log); "
+          f"`rlmeson run {final}/{fit.FITTED_CONFIG}` reproduces the fit")
+    return EXIT_OK
+
+
+def _show_fit(d: Path) -> int:
+    from . import fit
+
+    try:
+        fj = json.loads((d / "fit.json").read_text(encoding="utf-8"))
+        if not isinstance(fj, dict) or fj.get("package") != "rlmeson":
+            raise ValueError("not written by rlmeson")
+        lines = fit.report_lines(fj)
+    except (OSError, ValueError, KeyError, TypeError) as e:
+        raise UsageError(f"DIR {d}: not a fit directory of rlmeson (fit.json: {type(e).__name__})") from None
+    print("\n".join(lines))
     return EXIT_OK
 
 
 def cmd_show(args) -> int:
     """The summary of a run directory, read from its summary.json (no numerics)."""
     d = Path(args.dir)
+    if (d / "fit.json").is_file() and not (d / "summary.json").exists():
+        return _show_fit(d)
+    if (d / "scan.json").is_file() and not (d / "summary.json").exists():
+        return _show_scan(d)
     try:
         summ = json.loads((d / "summary.json").read_text(encoding="utf-8"))
     except (OSError, ValueError) as e:
@@ -451,10 +526,39 @@ def cmd_show(args) -> int:
         conv = m.get("decay_constant_convention")
         err = m.get("mass_error_gev")
         print(f"  {m['name']:<10}{m['channel']:<14}M = {m['mass_gev']:.6f} GeV"
-              f"{'' if err is None else f' ± {err:.1e}'}   f = {m['decay_constant_gev']:.6f} GeV"
+              f"{'' if err is None else f' ± {err:.1e}'}   f = {_fmt(m['decay_constant_gev'], '.6f')} GeV"
+              f"{'   (extrapolated)' if m.get('extrapolated') else ''}"
               f"{'' if m.get('validated', True) else '   (not validated: ' + str(m.get('validation_reason')) + ')'}")
     if conv:
         print(f"  decay constants: {conv}")
+    return EXIT_OK
+
+
+def _show_scan(d: Path) -> int:
+    """The summary of a scan directory, from its scan.json (no numerics)."""
+    try:
+        doc = json.loads((d / "scan.json").read_text(encoding="utf-8"))
+        points = doc["points"]
+        axes = doc["axes"]
+    except (OSError, ValueError, KeyError, TypeError) as e:
+        raise UsageError(f"DIR {d}: not a scan directory of rlmeson (scan.json: {type(e).__name__})") from None
+    ok = sum(p.get("status") == "ok" for p in points)
+    cached = sum(bool(p.get("from_cache")) for p in points)
+    print(f"scan {doc.get('scan')}: {len(points)} points over {', '.join(axes)}; {ok} ok, "
+          f"{len(points) - ok} failed; {cached} from the store; {doc.get('executor', '')}")
+    if "chiral_condensate_gev3" in doc:
+        print(f"  chiral condensate -<qbar q>^0 = {doc['chiral_condensate_gev3']:.6g} GeV^3 at zeta = "
+              f"{doc.get('gmor_renormalisation_point_gev')} GeV")
+    mesons = sorted({m for p in points for m in (p.get("mesons") or {})})
+    print("  " + "".join(f"{a.rsplit('.', 1)[-1][:16]:>17}" for a in axes)
+          + "".join(f"{m + ' M':>12}{m + ' f':>12}" for m in mesons) + "  status")
+    for p in points:
+        row = "".join(f"{p['point'].get(a, float('nan')):>17.6g}" for a in axes)
+        for m in mesons:
+            v = (p.get("mesons") or {}).get(m) or {}
+            row += "".join(f"{x:>12.6f}" if isinstance(x, (int, float)) else f"{'—':>12}"
+                           for x in (v.get("mass_gev"), v.get("decay_constant_gev")))
+        print(f"  {row}  {p.get('status')}{'' if p.get('status') == 'ok' else ': ' + str(p.get('message'))[:60]}")
     return EXIT_OK
 
 
@@ -462,16 +566,20 @@ def _table(result) -> str:
     """The results table: masses with their grid error, f (convention labelled), the
     normalisation agreement, the identity that checks each state (AV-WTI for a massive
     pseudoscalar, |λ(0) − 1| for a chiral-limit Goldstone boson) and the next eigenvalue;
-    results through an unvalidated route are marked and explained below the table."""
+    results through an unvalidated route are marked and explained below the table; the
+    flavours, the momentum partition η and the mass's η spread |M(η₂) − M(η)| close each
+    row; a mass extrapolated beyond M_max shows its extrapolation error and 'extrapolated'."""
     conv = result.config.output.decay_constant_convention
     rows = [f"{result.config.name}: {result.summary()['regularisation_description']}",
             f"{'meson':<10}{'channel':<14}{'M [GeV]':>12}{'± (grid)':>10}{'f [GeV]':>11}{'± (grid)':>10}"
-            f"{'N agree':>9}{'identity':>17}{'next λ':>8}",
-            "-" * 101]
+            f"{'N agree':>9}{'identity':>17}{'next λ':>8}{'quarks':>8}{'η':>7}{'Δ_η M':>9}",
+            "-" * 125]
     notes = []
-    for m in result.mesons:
+    for m in [*result.mesons, *getattr(result, "extrapolated", [])]:
         s = m.summary()
-        if "goldstone_residual" in s:
+        if s.get("extrapolated"):
+            mass, err, ident = f"{s['mass_gev']:.6f}", _fmt(s["mass_error_gev"], ".1e"), "extrapolated"
+        elif "goldstone_residual" in s:
             mass, err = "0 (chiral)", "—"
             ident = f"|λ(0)-1| {_fmt(s['goldstone_residual'], '.0e')}"
         else:
@@ -481,12 +589,14 @@ def _table(result) -> str:
         if not s["validated"]:
             notes.append(f"* {m.name}: not validated: {s['validation_reason']}")
         rows.append(f"{name:<10}{m.channel:<14}{mass:>12}{err:>10}"
-                    f"{s['decay_constant_gev']:>11.6f}{_fmt(s['decay_constant_error_gev'], '.1e'):>10}"
-                    f"{s['normalisation_agreement']:>9.1e}{ident:>17}"
-                    f"{_fmt(s['next_eigenvalue'], '.3f'):>8}")
+                    f"{_fmt(s['decay_constant_gev'], '.6f'):>11}{_fmt(s['decay_constant_error_gev'], '.1e'):>10}"
+                    f"{_fmt(s['normalisation_agreement'], '.1e'):>9}{ident:>17}"
+                    f"{_fmt(s['next_eigenvalue'], '.3f'):>8}{' '.join(s['flavours']):>8}{s['eta']:>7.3f}"
+                    f"{_fmt(s.get('eta_spread_gev'), '.1e'):>9}")
     rows.append(f"decay constants in the {conv} MeV convention "
                 f"({'f_pi ~ 92 MeV' if conv == '92' else 'f_pi ~ 131 MeV, sqrt 2 larger'}); "
-                "± (grid): difference to a coarser grid")
+                "± (grid): difference to a coarser grid (extrapolated: spread of the continuations); "
+                "Δ_η M: the mass's change at a second momentum partition (— not computed)")
     return "\n".join(rows + notes)
 
 
@@ -576,6 +686,10 @@ _STAGED: list[Path] = []   # fresh run directories not yet moved into place (rem
 def _is_run_directory(d: Path) -> bool:
     try:
         return json.loads((d / "summary.json").read_text(encoding="utf-8")).get("package") == "rlmeson"
+    except (OSError, ValueError, AttributeError):
+        pass
+    try:   # a fit directory (fit.json)
+        return json.loads((d / "fit.json").read_text(encoding="utf-8")).get("package") == "rlmeson"
     except (OSError, ValueError, AttributeError):
         return False
 
@@ -695,7 +809,7 @@ def _main(argv) -> int:
         except SystemExit as e:  # --help, --version
             return EXIT_OK if not e.code else EXIT_BAD_INPUT
         return {"quark": cmd_quark, "run": cmd_run, "plot": cmd_plot, "export": cmd_export,
-                "show": cmd_show, "scan": cmd_scan}[args.command](args)
+                "show": cmd_show, "scan": cmd_scan, "fit": cmd_fit}[args.command](args)
     except (ConfigError, UsageError) as e:
         print(f"rlmeson: {e}", file=sys.stderr)
         return EXIT_BAD_INPUT

@@ -31,6 +31,10 @@ file sits under; an entry that cannot be opened, lacks the checksum, does not ma
 (truncated, corrupted, edited) or was written under another name (copied, renamed) is
 deleted with a :class:`StoreWarning` and reported as absent, so the caller recomputes it.
 
+Several processes may share one store: :meth:`Store.claim` holds an entry (an OS file
+lock under ``<root>/.locks/``, released when the holder ends, also on SIGKILL) around
+"look up → compute → write", so no entry is computed twice at once.
+
 Temporary names carry the host and process id (``.<name>.<host>-<pid>-<random>.tmp``);
 a temporary file left by a killed process of this host is removed by the next write
 into the same directory.  ``try_put`` is ``put`` for callers that can go on without the
@@ -510,6 +514,42 @@ class Store:
         if entry is None:
             raise StoreError(f"entry {kind}/{key} could not be read back after writing")
         return entry, False
+
+    def lock_path(self, kind: str, key: str) -> Path:
+        """Where the lock of an entry lives: ``root/.locks/<kind>-<key>.lock`` (outside the
+        kind directories, so a lock is never taken for an entry)."""
+        return self.root / ".locks" / f"{_check_name('kind', kind)}-{_check_name('key', key)}.lock"
+
+    @contextmanager
+    def claim(self, kind: str, key: str, waiting: Callable[[str], None] | None = None) -> Iterator[None]:
+        """Hold the entry ``kind/key`` for "look up → compute → write": another process
+        (or thread) claiming the same entry waits until this block ends, then finds the
+        entry in the store instead of computing it again.  ``waiting(message)`` is called
+        once if the entry is held by someone else.
+
+        The lock is an OS file lock (``filelock``): it is released when the holder exits,
+        also when it is killed (SIGKILL), so a lock file left behind is harmless -- the next
+        claim takes it at once.  A store whose lock directory cannot be created (read-only)
+        is used without locking."""
+        from filelock import FileLock, Timeout
+
+        path = self.lock_path(kind, key)
+        try:
+            path.parent.mkdir(parents=True, exist_ok=True)
+            lock = FileLock(str(path))
+            try:
+                lock.acquire(timeout=0)
+            except Timeout:
+                if waiting is not None:
+                    waiting(f"{kind} entry {key[:12]}… is being computed by another process; waiting for it")
+                lock.acquire()
+        except OSError:
+            lock = None
+        try:
+            yield
+        finally:
+            if lock is not None:
+                lock.release()
 
 
 def _discard(path: Path, identity: tuple, exc: Exception) -> None:
