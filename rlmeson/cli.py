@@ -5,7 +5,6 @@
     rlmeson plot DIR [DIR ...] [--out DIR] [--format png|pdf|svg] [--uncut]
     rlmeson export SOURCE [--what ...] [--format ...] [--out DIR] [--region-mass GEV] [--flavour NAME]
     rlmeson show DIR
-    rlmeson fit CONFIG [--out DIR] [--quiet] [--no-cache]
     rlmeson scan CONFIG [--out DIR] [--workers N] [--dask ADDRESS|local]
     (quark, run and export take --set KEY=VALUE overrides of config keys)
 
@@ -16,16 +15,9 @@ Set RLMESON_DEBUG=1 to see tracebacks.
 
 from __future__ import annotations
 
-import os
-
-# Our dense linear algebra is small (ARPACK on vectors of a few thousand entries): BLAS
-# threads only compete with JAX's own thread pool; measured 1.5–2× faster eigen-solves
-# with one BLAS thread on 2 cores.  Set before NumPy loads its BLAS; a user's setting wins.
-for _var in ("OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
-    os.environ.setdefault(_var, "1")
-
 import argparse
 import json
+import os
 import shutil
 import signal
 import sys
@@ -99,13 +91,6 @@ def _parser() -> argparse.ArgumentParser:
     c.add_argument("--quiet", action="store_true")
     c.add_argument("--set", action="append", default=[], metavar="KEY=VALUE",
                    help="override a config key of every point; repeatable")
-    f = sub.add_parser("fit", help="fit the parameters of the config's [fit] table to its targets")
-    f.add_argument("config")
-    f.add_argument("--out", metavar="DIR", help="output directory (default runs/<name>-fit-<hash>)")
-    f.add_argument("--no-cache", action="store_true")
-    f.add_argument("--quiet", action="store_true", help="no progress lines")
-    f.add_argument("--set", action="append", default=[], metavar="KEY=VALUE",
-                   help="override a config key (dotted, e.g. fit.max_iterations=10); repeatable")
     w = sub.add_parser("show", help="print the summary of a run or scan directory")
     w.add_argument("dir", metavar="DIR")
     return p
@@ -172,9 +157,9 @@ def _manifest(cfg, result, argv) -> dict:
                                                                             "xarray", "h5netcdf")}},
         "timings_seconds": {"total": result.seconds,
                             "quarks": {n: q.seconds for n, q in result.quarks.items()},
-                            "mesons": {m.name: m.seconds for m in [*result.mesons, *result.extrapolated]}},
+                            "mesons": {m.name: m.seconds for m in result.mesons}},
         "from_cache": {"quarks": {n: q.from_cache for n, q in result.quarks.items()},
-                       "mesons": {m.name: m.from_cache for m in [*result.mesons, *result.extrapolated]}},
+                       "mesons": {m.name: m.from_cache for m in result.mesons}},
     }
 
 
@@ -449,64 +434,9 @@ def cmd_scan(args) -> int:
     return EXIT_OK
 
 
-def cmd_fit(args) -> int:
-    """Least squares of the [fit] parameters on its targets; fit.json, the fitted config,
-    a report and a figure."""
-    from . import config, fitspec
-
-    spec = fitspec.load(args.config, args.set)
-    start = spec.config_at(spec.start)
-    final = Path(args.out) if args.out else Path("runs") / f"{spec.name}-fit-{start.hash()[:8]}"
-    out = _stage(final, "--out" if args.out else "the default output directory")  # checked before any work
-    _echo(start, config, args.quiet)
-    _check_store(start, args.no_cache)
-    from . import fit, pipeline
-    from .progress import bar
-    from .store import atomic_write_text
-
-    store = pipeline.store_of(start, not args.no_cache)
-    log: list[str] = []
-    with bar(None, "fit step", args.quiet, log) as b:
-        b.note(f"fit of {spec.name}: " + ", ".join(p.key for p in spec.parameters) + " to "
-               + ", ".join(t.name for t in spec.targets) + f"; derivatives {spec.derivatives}")
-
-        def say(msg):
-            _check_terminated()
-            b.step(msg.split(": ", 1)[-1] if msg.startswith("step ") else msg)
-
-        try:
-            result = fit.run_fit(spec, store, say)
-        except fit.FitFailed as e:
-            raise RuntimeError(str(e)) from None
-    fj = fit.write_outputs(result, out)
-    atomic_write_text(out / "fit.log", "\n".join(log) + "\n")
-    _check_terminated()
-    _move_into_place(out, final)
-    print("\n".join(fit.report_lines(fj)))
-    print(f"\noutputs in {final}/ (fit.json, {fit.FITTED_CONFIG}, {fit.REPORT}, {fit.FIGURE}, fit.log); "
-          f"`rlmeson run {final}/{fit.FITTED_CONFIG}` reproduces the fit")
-    return EXIT_OK
-
-
-def _show_fit(d: Path) -> int:
-    from . import fit
-
-    try:
-        fj = json.loads((d / "fit.json").read_text(encoding="utf-8"))
-        if not isinstance(fj, dict) or fj.get("package") != "rlmeson":
-            raise ValueError("not written by rlmeson")
-        lines = fit.report_lines(fj)
-    except (OSError, ValueError, KeyError, TypeError) as e:
-        raise UsageError(f"DIR {d}: not a fit directory of rlmeson (fit.json: {type(e).__name__})") from None
-    print("\n".join(lines))
-    return EXIT_OK
-
-
 def cmd_show(args) -> int:
     """The summary of a run directory, read from its summary.json (no numerics)."""
     d = Path(args.dir)
-    if (d / "fit.json").is_file() and not (d / "summary.json").exists():
-        return _show_fit(d)
     if (d / "scan.json").is_file() and not (d / "summary.json").exists():
         return _show_scan(d)
     try:
@@ -526,8 +456,7 @@ def cmd_show(args) -> int:
         conv = m.get("decay_constant_convention")
         err = m.get("mass_error_gev")
         print(f"  {m['name']:<10}{m['channel']:<14}M = {m['mass_gev']:.6f} GeV"
-              f"{'' if err is None else f' ± {err:.1e}'}   f = {_fmt(m['decay_constant_gev'], '.6f')} GeV"
-              f"{'   (extrapolated)' if m.get('extrapolated') else ''}"
+              f"{'' if err is None else f' ± {err:.1e}'}   f = {m['decay_constant_gev']:.6f} GeV"
               f"{'' if m.get('validated', True) else '   (not validated: ' + str(m.get('validation_reason')) + ')'}")
     if conv:
         print(f"  decay constants: {conv}")
@@ -566,20 +495,16 @@ def _table(result) -> str:
     """The results table: masses with their grid error, f (convention labelled), the
     normalisation agreement, the identity that checks each state (AV-WTI for a massive
     pseudoscalar, |λ(0) − 1| for a chiral-limit Goldstone boson) and the next eigenvalue;
-    results through an unvalidated route are marked and explained below the table; the
-    flavours, the momentum partition η and the mass's η spread |M(η₂) − M(η)| close each
-    row; a mass extrapolated beyond M_max shows its extrapolation error and 'extrapolated'."""
+    results through an unvalidated route are marked and explained below the table."""
     conv = result.config.output.decay_constant_convention
     rows = [f"{result.config.name}: {result.summary()['regularisation_description']}",
             f"{'meson':<10}{'channel':<14}{'M [GeV]':>12}{'± (grid)':>10}{'f [GeV]':>11}{'± (grid)':>10}"
-            f"{'N agree':>9}{'identity':>17}{'next λ':>8}{'quarks':>8}{'η':>7}{'Δ_η M':>9}",
-            "-" * 125]
+            f"{'N agree':>9}{'identity':>17}{'next λ':>8}",
+            "-" * 101]
     notes = []
-    for m in [*result.mesons, *getattr(result, "extrapolated", [])]:
+    for m in result.mesons:
         s = m.summary()
-        if s.get("extrapolated"):
-            mass, err, ident = f"{s['mass_gev']:.6f}", _fmt(s["mass_error_gev"], ".1e"), "extrapolated"
-        elif "goldstone_residual" in s:
+        if "goldstone_residual" in s:
             mass, err = "0 (chiral)", "—"
             ident = f"|λ(0)-1| {_fmt(s['goldstone_residual'], '.0e')}"
         else:
@@ -589,14 +514,12 @@ def _table(result) -> str:
         if not s["validated"]:
             notes.append(f"* {m.name}: not validated: {s['validation_reason']}")
         rows.append(f"{name:<10}{m.channel:<14}{mass:>12}{err:>10}"
-                    f"{_fmt(s['decay_constant_gev'], '.6f'):>11}{_fmt(s['decay_constant_error_gev'], '.1e'):>10}"
-                    f"{_fmt(s['normalisation_agreement'], '.1e'):>9}{ident:>17}"
-                    f"{_fmt(s['next_eigenvalue'], '.3f'):>8}{' '.join(s['flavours']):>8}{s['eta']:>7.3f}"
-                    f"{_fmt(s.get('eta_spread_gev'), '.1e'):>9}")
+                    f"{s['decay_constant_gev']:>11.6f}{_fmt(s['decay_constant_error_gev'], '.1e'):>10}"
+                    f"{s['normalisation_agreement']:>9.1e}{ident:>17}"
+                    f"{_fmt(s['next_eigenvalue'], '.3f'):>8}")
     rows.append(f"decay constants in the {conv} MeV convention "
                 f"({'f_pi ~ 92 MeV' if conv == '92' else 'f_pi ~ 131 MeV, sqrt 2 larger'}); "
-                "± (grid): difference to a coarser grid (extrapolated: spread of the continuations); "
-                "Δ_η M: the mass's change at a second momentum partition (— not computed)")
+                "± (grid): difference to a coarser grid")
     return "\n".join(rows + notes)
 
 
@@ -686,10 +609,6 @@ _STAGED: list[Path] = []   # fresh run directories not yet moved into place (rem
 def _is_run_directory(d: Path) -> bool:
     try:
         return json.loads((d / "summary.json").read_text(encoding="utf-8")).get("package") == "rlmeson"
-    except (OSError, ValueError, AttributeError):
-        pass
-    try:   # a fit directory (fit.json)
-        return json.loads((d / "fit.json").read_text(encoding="utf-8")).get("package") == "rlmeson"
     except (OSError, ValueError, AttributeError):
         return False
 
@@ -809,7 +728,7 @@ def _main(argv) -> int:
         except SystemExit as e:  # --help, --version
             return EXIT_OK if not e.code else EXIT_BAD_INPUT
         return {"quark": cmd_quark, "run": cmd_run, "plot": cmd_plot, "export": cmd_export,
-                "show": cmd_show, "scan": cmd_scan, "fit": cmd_fit}[args.command](args)
+                "show": cmd_show, "scan": cmd_scan}[args.command](args)
     except (ConfigError, UsageError) as e:
         print(f"rlmeson: {e}", file=sys.stderr)
         return EXIT_BAD_INPUT

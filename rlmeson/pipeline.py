@@ -19,7 +19,7 @@ from typing import Callable
 import numpy as np
 
 from . import __version__
-from . import bse, channels, extrapolate, gap, observables, quarkplane, search, singularities
+from . import bse, channels, gap, observables, quarkplane, search, singularities
 from .config import Config, ConfigError, MesonConfig, meson_label
 from .kernel import N_C, Kernel
 from .store import Store
@@ -466,12 +466,10 @@ def check_mass_guess(cfg: Config, meson: MesonConfig, quarks: dict[str, QuarkRes
 
 def bound_state(cfg: Config, meson: MesonConfig, quarks: dict[str, QuarkResult],
                 grid: bse.BSEGrid, progress: Progress = _quiet, spectrum: bool = False,
-                eta_spread: bool = False, bracket: float = 0.15) -> BoundStateCore:
+                eta_spread: bool = False) -> BoundStateCore:
     """Mass, normalised amplitude and observables of one meson on one grid (and, with
     ``spectrum``, the leading eigenvalues at a few P² for the λ(P²) figure; with
-    ``eta_spread``, the mass at a second momentum partition, ``eta_spread``).  ``bracket``:
-    the relative half-width of the first bracket around the guess (small when the guess
-    is the same state's mass on another grid)."""
+    ``eta_spread``, the mass at a second momentum partition, ``eta_spread``)."""
     kern = kernel_of(cfg)
     q1, q2 = quarks[meson.quarks[0]], quarks[meson.quarks[1]]
     ch = channels.get(meson.channel)
@@ -493,7 +491,7 @@ def bound_state(cfg: Config, meson: MesonConfig, quarks: dict[str, QuarkResult],
         check_mass_guess(cfg, meson, quarks)
         guess = meson.mass_guess_gev or _guess(ch.name, q1, q2, m_max)
         progress(f"{meson.name}: searching lambda(P^2) = 1 below M_max = {m_max:.4g} GeV")
-        sol = search.find_mass(bs, guess, m_max, step=bracket)
+        sol = search.find_mass(bs, guess, m_max)
         mass, vec, evals = sol.mass_gev, sol.eigenvector, sol.evaluations
         nrm = _normalise_at(bs, lead, mass, vec)
         curve = _merge(sol.curve, lead.curve)
@@ -683,7 +681,6 @@ class MesonResult:
             "quarks": list(self.quarks),
             "current_masses_gev": list(self.current_masses_gev),
             "continuation": self.continuation,
-            "flavours": list(self.quarks),
             "eta": self.eta,
             "eta_method": self.eta_method,
             "eta_spread_gev": self.core.eta_spread_gev,
@@ -702,7 +699,6 @@ class MesonResult:
                             "see goldstone_residual = |lambda(P^2 = 0) - 1|" if c.chiral else
                             "root of lambda(P^2 = -M^2) = 1"),
             "mass_error_gev": None,
-            "extrapolated": False,
             "decay_constant_gev": f,
             "decay_constant_error_gev": None,
             "decay_constant_convention": observables.CONVENTION_LABELS[self.convention],
@@ -791,11 +787,6 @@ def _core_from_store(prefix: str, arrays: dict, attrs: dict) -> BoundStateCore:
                           eta_spread_gev=a.get("eta_spread_gev"), eta_spread_second_eta=a.get("eta_spread_second_eta"))
 
 
-#: First bracket of the error-grid search, relative to the fine grid's mass (the two
-#: differ by < 1e-4 on the shipped grids; a wider bracket is grown if needed).
-COARSE_BRACKET = 0.01
-
-
 def solve_meson(cfg: Config, meson: MesonConfig, quarks: dict[str, QuarkResult],
                 store: Store | None = None, progress: Progress = _quiet,
                 eta_spread: bool | None = None) -> MesonResult:
@@ -837,7 +828,7 @@ def _solve_meson(cfg: Config, meson: MesonConfig, quarks: dict[str, QuarkResult]
         progress(f"{meson.name}: second, coarser grid for the error estimate")
         coarse = bound_state(cfg, MesonConfig(meson.name, meson.channel, meson.quarks, meson.eta,
                                               core.mass_gev or meson.mass_guess_gev),
-                             quarks, grid.coarser(), bracket=COARSE_BRACKET)
+                             quarks, grid.coarser())
     res = MesonResult(core=core, coarse=coarse, seconds=time.perf_counter() - t0, **common)
     if store is not None:
         arrays, attrs = {}, {"version": __version__, "meson_key": key, "channel": meson.channel}
@@ -849,95 +840,6 @@ def _solve_meson(cfg: Config, meson: MesonConfig, quarks: dict[str, QuarkResult]
 
 
 # ----------------------------------------------------------------------------------------
-# Beyond the parabola
-
-@dataclass(frozen=True)
-class ExtrapolatedMeson:
-    """A state whose λ(P²) = 1 crossing lies above M_max: its mass estimated by rational
-    continuation of λ(P²) from where it is accessible (``extrapolate``).  There is no
-    amplitude there, hence no decay constant, normalisation or identity check."""
-
-    name: str
-    channel: str
-    quarks: tuple[str, str]
-    current_masses_gev: tuple[float, float]
-    continuation: str
-    eta: float
-    eta_method: str | None
-    limit_gev: float
-    extrapolation: extrapolate.Extrapolation = field(repr=False)
-    reason: str
-    seconds: float
-    convention: str = "92"
-    from_cache: bool = False
-
-    @property
-    def mass_gev(self) -> float:
-        return self.extrapolation.mass_gev
-
-    def summary(self) -> dict:
-        e = self.extrapolation
-        return {
-            "name": self.name,
-            "channel": self.channel,
-            "jpc": channels.get(self.channel).jpc,
-            "quarks": list(self.quarks),
-            "flavours": list(self.quarks),
-            "current_masses_gev": list(self.current_masses_gev),
-            "continuation": self.continuation,
-            "eta": self.eta,
-            "eta_method": self.eta_method,
-            "eta_spread_gev": None,
-            "eta_spread_second_eta": None,
-            "eta_spread_method": "not computed: the mass is extrapolated",
-            "validated": False,
-            "validation_reason": (f"mass extrapolated beyond M_max = {self.limit_gev:.4g} GeV by rational "
-                                  "continuation of lambda(P^2): no amplitude, decay constant or identity check"),
-            "extrapolated": True,
-            "extrapolation_reason": self.reason,
-            "max_bound_state_mass_gev": self.limit_gev,
-            "mass_gev": e.mass_gev,
-            "mass_method": "lambda(P^2 = -M^2) = 1 of rational continuations of lambda(P^2) (see extrapolation)",
-            "mass_error_gev": e.error_gev,
-            "error_estimate": "spread of the rational continuations (degrees and fitted ranges)",
-            "extrapolation": e.summary(),
-            "decay_constant_gev": None,
-            "decay_constant_error_gev": None,
-            "decay_constant_convention": observables.CONVENTION_LABELS[self.convention],
-            "normalisation_agreement": None,
-            "next_eigenvalue": None,
-            "seconds": self.seconds,
-            "from_cache": self.from_cache,
-        }
-
-
-def extrapolate_meson(cfg: Config, meson: MesonConfig, quarks: dict[str, QuarkResult],
-                      progress: Progress = _quiet, limit_gev: float | None = None,
-                      reason: str = "") -> ExtrapolatedMeson:
-    """The mass of a state above M_max (``limit_gev`` overrides M_max: to validate on
-    accessible states) by rational continuation of its leading λ(P²), sampled spacelike
-    and timelike below the limit.  ``extrapolate.NotExtrapolable`` says why not."""
-    t0 = time.perf_counter()
-    q1, q2 = quarks[meson.quarks[0]], quarks[meson.quarks[1]]
-    eta, eta_method = meson_eta(meson, q1, q2)
-    limit = mass_limit(q1, q2, eta) if limit_gev is None else float(limit_gev)
-    if not math.isfinite(limit):
-        raise extrapolate.NotExtrapolable("M_max is not finite: the state is accessible")
-    bs = bse.BoundState(kernel_of(cfg), channels.get(meson.channel), bse_grid_of(cfg), q1.solution,
-                        q2.solution if q2 is not q1 else None, eta=eta,
-                        continuation=cfg.bse.continuation, max_mass=limit)
-    progress(f"{meson.name}: sampling lambda(P^2) below M_max = {limit:.4g} GeV to extrapolate past it")
-    p2, lam = extrapolate.sample(bs, limit)
-    ex = extrapolate.extrapolate(p2, lam)
-    progress(f"{meson.name}: extrapolated M = {ex.mass_gev:.4f} ± {ex.error_gev:.1g} GeV")
-    return ExtrapolatedMeson(name=meson.name, channel=meson.channel, quarks=meson.quarks,
-                             current_masses_gev=(q1.solution.mass_gev, q2.solution.mass_gev),
-                             continuation=cfg.bse.continuation, eta=eta, eta_method=eta_method, limit_gev=limit,
-                             extrapolation=ex, reason=reason, seconds=time.perf_counter() - t0,
-                             convention=cfg.output.decay_constant_convention)
-
-
-# ----------------------------------------------------------------------------------------
 # A whole run
 
 @dataclass(frozen=True)
@@ -946,9 +848,6 @@ class RunResult:
     quarks: dict[str, QuarkResult]
     mesons: list[MesonResult]
     seconds: float
-    #: states above M_max whose masses were extrapolated (``extrapolate_meson``); after
-    #: ``mesons`` in the summary's list (exports pair ``mesons`` with its first entries)
-    extrapolated: list[ExtrapolatedMeson] = field(default_factory=list)
 
     def inputs(self) -> dict:
         """The resolved config (defaults filled in, in the nesting of the TOML file) and
@@ -979,7 +878,7 @@ class RunResult:
             "inputs": self.inputs(),
             "quark": self.quarks[first].summary(),
             "quarks": {n: q.summary() for n, q in self.quarks.items()},
-            "mesons": [m.summary() for m in self.mesons] + [e.summary() for e in self.extrapolated],
+            "mesons": [m.summary() for m in self.mesons],
             "seconds": self.seconds,
         }
 
@@ -988,25 +887,17 @@ def run(cfg: Config, store: Store | None = None, progress: Progress = _quiet) ->
     t0 = time.perf_counter()
     needed = [f.name for f in cfg.flavours]
     quarks = {n: solve_quark(cfg, n, store, progress) for n in needed}
-    mesons, beyond = [], []
+    mesons = []
     for i, m in enumerate(cfg.mesons):
         try:
-            try:
-                mesons.append(solve_meson(cfg, m, quarks, store, progress))
-            except search.NoBoundState as e:   # above M_max: extrapolate, or say why not
-                progress(f"{m.name}: {e}")
-                try:
-                    beyond.append(extrapolate_meson(cfg, m, quarks, progress, reason=str(e)))
-                except extrapolate.NotExtrapolable as why:
-                    raise search.NoBoundState(f"{e}; no extrapolation beyond M_max either: {why}") from None
+            mesons.append(solve_meson(cfg, m, quarks, store, progress))
         except (ConfigError, KeyboardInterrupt):
             raise
         except Exception as e:  # say which meson could not be computed
             if e.args and isinstance(e.args[0], str):
                 e.args = (f"{meson_label(i, m.name)}: {e.args[0]}", *e.args[1:])
             raise
-    return RunResult(config=cfg, quarks=quarks, mesons=mesons, seconds=time.perf_counter() - t0,
-                     extrapolated=beyond)
+    return RunResult(config=cfg, quarks=quarks, mesons=mesons, seconds=time.perf_counter() - t0)
 
 
 __all__ = ["run", "solve_quark", "solve_meson", "bound_state", "kernel_of"]
