@@ -50,6 +50,22 @@ class KernelForm:
 
 
 @dataclass(frozen=True)
+class TangentForm:
+    """dg/dθ of a ``KernelForm`` along a direction in parameter space, usable wherever a
+    KernelForm is (``selfenergy.rows``, ``ladder`` moments): its ``g`` takes the pair
+    (parameters, tangents) and returns the forward-mode derivative.  The direction is
+    data (traced), so one compilation serves every direction."""
+
+    base: KernelForm
+
+    def g(self, s, jparams):
+        from ._jax import jax
+
+        params, tangents = jparams
+        return jax.jvp(lambda p: self.base.g(s, p), (params,), (tangents,))[1]
+
+
+@dataclass(frozen=True)
 class Kernel:
     model: str
     params: Mapping[str, float] = field(hash=False)
@@ -88,6 +104,16 @@ class Kernel:
         from ._jax import jnp  # (here, so that reading a config does not import JAX)
 
         return {k: jnp.asarray(float(v)) for k, v in self.params.items()}
+
+    def jtangent(self, direction) -> tuple[dict, dict]:
+        """(parameters, tangents) for ``TangentForm``: ``direction`` maps parameter names
+        to tangent components (others 0)."""
+        from ._jax import jnp
+
+        unknown = set(direction) - set(self.params)
+        if unknown:
+            raise KeyError(f"not a parameter of {self.model}: {', '.join(sorted(unknown))}")
+        return self.jparams(), {k: jnp.asarray(float(direction.get(k, 0.0))) for k in self.params}
 
     @property
     def form(self) -> KernelForm:

@@ -186,44 +186,73 @@ def moments(kernel: Kernel, grid: LadderGrid, n_l: int, n_s: int, block: int = 8
     Computed once per (kernel, grid) for the largest (n_l, n_s) asked so far and sliced,
     so the quark and meson operators on one grid share it.
     """
-    from .selfenergy import RuleSet, fine_levels
-
     key = (kernel.form, tuple(sorted((k, float(v)) for k, v in kernel.params.items())), grid)
     hit = _MOMENT_CACHE.get(key)
     if hit is not None and hit[0] >= n_l and hit[1] >= n_s:
         return hit[2][:, :n_s, :n_l]
     if hit is not None:
         n_l, n_s = max(n_l, hit[0]), max(n_s, hit[1])
+    mu = _raw_moments(kernel, grid, n_l + n_s - 1, block)  # (P, Q, n_u, 4)
+    lam = _lam_from_mu(mu, grid.radial.q2, n_l, n_s)
+    if len(_MOMENT_CACHE) > 8:
+        _MOMENT_CACHE.clear()
+    _MOMENT_CACHE[key] = (n_l, n_s, lam)
+    return lam
+
+
+def _raw_moments(kernel: Kernel, grid: LadderGrid, n_u: int, block: int, form=None, jparams=None):
+    """μ (P, Q, n_u, 4) of ``_moments_block`` on the grid's nodes, for ``kernel.form`` or
+    another object with ``g(s, jparams)``."""
+    from .selfenergy import RuleSet, fine_levels
+
     rad = grid.radial
     pabs = np.sqrt(rad.q2)
     levels = fine_levels(kernel, rad)
     tabs = qd.angular_tables(grid.angular_half)
     tables = tuple(jnp.asarray(tabs[k]) for k in ("half", "x", "s2w"))
-    jp = kernel.jparams()
+    form = kernel.form if form is None else form
+    jp = kernel.jparams() if jparams is None else jparams
     k_res = kernel.resolution_gev
     T = pabs.size
     nb = -(-T // block)
     pp = np.concatenate([pabs, np.full(nb * block - T, pabs[-1])])
-    n_u = n_l + n_s - 1
     outs = []
     for b in range(nb):
         sl = pp[b * block:(b + 1) * block]
         rs = RuleSet(rad, sl * sl, k_res, levels, grid.fine_order)
         fr = rs.fine
-        outs.append(_moments_block(kernel.form, jp, jnp.asarray(sl), fr.t, fr.w, fr.idx, fr.lag,
+        outs.append(_moments_block(form, jp, jnp.asarray(sl), fr.t, fr.w, fr.idx, fr.lag,
                                    rs.level, *tables, rad.size, n_u))
-    mu = np.asarray(jnp.concatenate(outs)[:T])  # (P, Q, n_u, 4)
-    qn2 = rad.q2
+    return np.asarray(jnp.concatenate(outs)[:T])
+
+
+def _lam_from_mu(mu, qn2, n_l: int, n_s: int) -> np.ndarray:
+    """Λ[term, s, l, p, q] from the angular moments μ (P, Q, n_u, 4): the node factor
+    (1 + q²)² and x^s U_l = Σ a[l, l'] U_l' (linear in μ)."""
+    T = mu.shape[0]
     mu = mu * ((1.0 + qn2) ** 2)[None, :, None, None]
     lam = np.empty((4, n_s, n_l, T, T))
     lfac = 4.0 * np.pi / (np.arange(n_l) + 1.0)
     for s in range(n_s):
         a = qd.times_z_power(n_l - 1, s)  # x^s U_l = Σ a[l, l'] U_l'
         lam[:, s] = np.einsum("lL,pqLc->clpq", a, mu[:, :, : n_l + s]) * lfac[None, :, None, None]
-    if len(_MOMENT_CACHE) > 8:
-        _MOMENT_CACHE.clear()
-    _MOMENT_CACHE[key] = (n_l, n_s, lam)
     return lam
+
+
+def moment_sizes(channel: Channel, sign: float, n_z: int) -> tuple[int, int]:
+    """(n_l, n_s) of the moments that ``build`` asks for this channel on n_z nodes."""
+    _, db, ds = _polynomial_degrees(kernel_polynomials(channel, sign))
+    return n_z + db, ds + 1
+
+
+def moments_tangent(kernel: Kernel, grid: LadderGrid, n_l: int, n_s: int, direction, block: int = 8):
+    """dΛ/dθ along ``direction`` (dict parameter name → tangent): ``moments`` with g
+    replaced by its forward-mode derivative in the interaction parameters, at the same
+    quadrature rules (which follow ``kernel.resolution_gev`` and are held fixed)."""
+    from .kernel import TangentForm
+
+    mu = _raw_moments(kernel, grid, n_l + n_s - 1, block, TangentForm(kernel.form), kernel.jtangent(direction))
+    return _lam_from_mu(mu, grid.radial.q2, n_l, n_s)
 
 
 # ----------------------------------------------------------------------------------------
@@ -300,8 +329,27 @@ def _apply(chi, lam, cst, amat, zpow, ul, ninv, proj):
     return out.reshape(batch + out.shape[1:])
 
 
+#: Ladder operators built in this process, by (kernel, channel, grid, sign): the operator
+#: depends on nothing else (not on current masses, M or η), so the mesons of a run, its
+#: error grid's two channels, a fit's iterations at fixed interaction and a scan's
+#: current-mass points share them.  Oldest first; a few tens of MB each on default grids.
+_BUILT: dict = {}
+BUILT_KEEP = 8
+
+
 def build(kernel: Kernel, channel: Channel, grid: LadderGrid, sign: float = -1.0) -> LadderOperator:
-    """The mass-independent ladder kernel of ``channel`` on ``grid``."""
+    """The mass-independent ladder kernel of ``channel`` on ``grid`` (kept in-process)."""
+    key = (kernel, channel.name, channel.covariants, grid, float(sign))
+    hit = _BUILT.get(key)
+    if hit is None:
+        hit = _build(kernel, channel, grid, sign)
+        while len(_BUILT) >= BUILT_KEEP:
+            _BUILT.pop(next(iter(_BUILT)))
+        _BUILT[key] = hit
+    return hit
+
+
+def _build(kernel: Kernel, channel: Channel, grid: LadderGrid, sign: float) -> LadderOperator:
     from .dirac import rest_frame_vectors
 
     poly = kernel_polynomials(channel, sign)

@@ -78,8 +78,9 @@ def _rows_block(form, jparams, p2, t_f, w_f, idx, lag, level, tables, n_nodes: i
 
 
 def rows(kernel: Kernel, grid: qd.RadialGrid, p2, *, n_half: int = 40, levels: int | None = None,
-         order: int = 6, block: int = 16, jparams=None):
-    """(R_A, R_B) of shape (T, N) for targets p2 (real ≥ 0 or complex)."""
+         order: int = 6, block: int = 16, jparams=None, form=None):
+    """(R_A, R_B) of shape (T, N) for targets p2 (real ≥ 0 or complex).  ``form``: another
+    object with ``g(s, jparams)`` in place of ``kernel.form`` (``rows_tangent``)."""
     p2 = np.atleast_1d(np.asarray(p2))
     cplx = np.iscomplexobj(p2)
     if levels is None:
@@ -96,13 +97,22 @@ def rows(kernel: Kernel, grid: qd.RadialGrid, p2, *, n_half: int = 40, levels: i
         sl = p2p[b * block:(b + 1) * block]
         rs = RuleSet(grid, sl, kernel.resolution_gev, levels, order)
         dt = jnp.complex128 if cplx else jnp.float64
-        ra, rb = _rows_block(kernel.form, jparams, jnp.asarray(sl, dtype=dt), rs.fine.t, rs.fine.w,
+        ra, rb = _rows_block(kernel.form if form is None else form, jparams, jnp.asarray(sl, dtype=dt), rs.fine.t, rs.fine.w,
                              rs.fine.idx, rs.fine.lag, rs.level, tables, grid.size)
         out_a.append(ra)
         out_b.append(rb)
     ra = jnp.concatenate(out_a)[:T]
     rb = jnp.concatenate(out_b)[:T]
     return ra, rb
+
+
+def rows_tangent(kernel: Kernel, grid: qd.RadialGrid, p2, direction, **kw):
+    """(dR_A, dR_B): the derivative of ``rows`` along ``direction`` (dict parameter name →
+    tangent) in the interaction parameters, by forward-mode differentiation of g at the
+    same quadrature rules (which follow ``kernel.resolution_gev`` and are held fixed)."""
+    from .kernel import TangentForm
+
+    return rows(kernel, grid, p2, jparams=kernel.jtangent(direction), form=TangentForm(kernel.form), **kw)
 
 
 def fine_levels(kernel: Kernel, grid: qd.RadialGrid) -> int:
