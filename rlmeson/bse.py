@@ -38,7 +38,7 @@ class BoundState:
                  quark2: GapSolution | None = None, eta: float = 0.5, kernel_operator=None,
                  continuation: str = "shifted", subtract_boundary: bool = True,
                  max_mass: float = float("inf"), quark_operator=None, reflect: bool = True,
-                 shifted_tol: float = 1e-11):
+                 shifted_tol: float = 1e-11, on_axis: bool = False):
         self.kernel = kernel
         self.channel = channel
         self.grid = grid
@@ -65,6 +65,9 @@ class BoundState:
         if not 0.0 < self.eta < 1.0:
             raise ValueError(f"momentum partition eta = {self.eta!r} must lie in (0, 1)")
         self._lgrid = lgrid
+        # real quark momenta only (spacelike P with the direct continuation): the
+        # real-axis solution interpolated instead of the self-energy evaluated anew
+        self._on_axis = bool(on_axis) and continuation == "direct"
         self._subtract_boundary = subtract_boundary
         self.shifted_tol = float(shifted_tol)  # relative residual of the shifted gap solves
         self._shifted = self._shifted2 = None
@@ -116,10 +119,11 @@ class BoundState:
         """The same problem with the direct continuation, sharing the BSE kernel, for
         spacelike P (P² = μ² > 0, called with mass = iμ): the quark momenta q + ηP and
         q − (1−η)P are then real Euclidean vectors, where the direct evaluation of the
-        self-energy is the real-axis solution itself (exact)."""
+        self-energy is the real-axis solution itself, here interpolated on its nodes
+        (``propagators.dress_on_axis``: ≤ 5e-6 relative)."""
         return BoundState(self.kernel, self.channel, self.grid, self.quark1,
                           None if self.quark2 is self.quark1 else self.quark2, eta=self.eta,
-                          kernel_operator=self.ladder, continuation="direct")
+                          kernel_operator=self.ladder, continuation="direct", on_axis=True)
 
     @property
     def shape(self):
@@ -160,7 +164,10 @@ class BoundState:
             self._cache[key] = (sp, sm, sol, sol2)
             return self._cache[key]
         plus2, minus2 = props.shifted_momenta(self.q2, self.z, mass, self.eta)
-        if self.quark2 is self.quark1:
+        if self._on_axis:
+            dp = props.dress_on_axis(self.quark1, plus2)
+            dm = props.dress_on_axis(self.quark2, minus2)
+        elif self.quark2 is self.quark1:
             both = props.dress(self.quark1, np.stack([plus2, minus2]))
             dp = props.DressedPoints(both.p2[0], both.A[0], both.B[0])
             dm = props.DressedPoints(both.p2[1], both.A[1], both.B[1])
