@@ -67,6 +67,17 @@ def scan(cfg, workers: int | None = 1, dask: str | None = None, cache: bool = Tr
     return res
 
 
+def __getattr__(name):
+    # ``rlmeson.fit`` is the module rlmeson/fit.py, callable as the API function
+    # ``rlmeson.fit(cfg, ...)`` (``rlmeson.fit.fit``), imported on first use; the module
+    # name stays free for ``rlmeson.fit.tune_current_mass`` and the rest of it.
+    if name == "fit":
+        import importlib
+
+        return importlib.import_module(f"{__name__}.fit")
+    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
+
+
 def open_run(path):
     """A run directory written by ``rlmeson run``: ``.summary``, ``.quarks``, ``.mesons``,
     ``.config``, ``.propagator(flavour)``, ``.amplitude(meson)``."""

@@ -5,6 +5,7 @@
     rlmeson plot DIR [DIR ...] [--out DIR] [--format png|pdf|svg] [--uncut]
     rlmeson export SOURCE [--what ...] [--format ...] [--out DIR] [--region-mass GEV] [--flavour NAME]
     rlmeson show DIR
+    rlmeson fit CONFIG [--out DIR] [--quiet] [--no-cache]
     rlmeson scan CONFIG [--out DIR] [--workers N] [--dask ADDRESS|local]
     (quark, run and export take --set KEY=VALUE overrides of config keys)
 
@@ -91,6 +92,13 @@ def _parser() -> argparse.ArgumentParser:
     c.add_argument("--quiet", action="store_true")
     c.add_argument("--set", action="append", default=[], metavar="KEY=VALUE",
                    help="override a config key of every point; repeatable")
+    f = sub.add_parser("fit", help="fit the parameters of the config's [fit] table to its targets")
+    f.add_argument("config")
+    f.add_argument("--out", metavar="DIR", help="output directory (default runs/<name>-fit-<hash>)")
+    f.add_argument("--no-cache", action="store_true")
+    f.add_argument("--quiet", action="store_true", help="no progress lines")
+    f.add_argument("--set", action="append", default=[], metavar="KEY=VALUE",
+                   help="override a config key (dotted, e.g. fit.max_iterations=10); repeatable")
     w = sub.add_parser("show", help="print the summary of a run or scan directory")
     w.add_argument("dir", metavar="DIR")
     return p
@@ -434,9 +442,64 @@ def cmd_scan(args) -> int:
     return EXIT_OK
 
 
+def cmd_fit(args) -> int:
+    """Least squares of the [fit] parameters on its targets; fit.json, the fitted config,
+    a report and a figure."""
+    from . import config, fitspec
+
+    spec = fitspec.load(args.config, args.set)
+    start = spec.config_at(spec.start)
+    final = Path(args.out) if args.out else Path("runs") / f"{spec.name}-fit-{start.hash()[:8]}"
+    out = _stage(final, "--out" if args.out else "the default output directory")  # checked before any work
+    _echo(start, config, args.quiet)
+    _check_store(start, args.no_cache)
+    from . import fit, pipeline
+    from .progress import bar
+    from .store import atomic_write_text
+
+    store = pipeline.store_of(start, not args.no_cache)
+    log: list[str] = []
+    with bar(None, "fit step", args.quiet, log) as b:
+        b.note(f"fit of {spec.name}: " + ", ".join(p.key for p in spec.parameters) + " to "
+               + ", ".join(t.name for t in spec.targets) + f"; derivatives {spec.derivatives}")
+
+        def say(msg):
+            _check_terminated()
+            b.step(msg.split(": ", 1)[-1] if msg.startswith("step ") else msg)
+
+        try:
+            result = fit.run_fit(spec, store, say)
+        except fit.FitFailed as e:
+            raise RuntimeError(str(e)) from None
+    fj = fit.write_outputs(result, out)
+    atomic_write_text(out / "fit.log", "\n".join(log) + "\n")
+    _check_terminated()
+    _move_into_place(out, final)
+    print("\n".join(fit.report_lines(fj)))
+    print(f"\noutputs in {final}/ (fit.json, {fit.FITTED_CONFIG}, {fit.REPORT}, {fit.FIGURE}, fit.log); "
+          f"`rlmeson run {final}/{fit.FITTED_CONFIG}` reproduces the fit")
+    return EXIT_OK
+
+
+def _show_fit(d: Path) -> int:
+    from . import fit
+
+    try:
+        fj = json.loads((d / "fit.json").read_text(encoding="utf-8"))
+        if not isinstance(fj, dict) or fj.get("package") != "rlmeson":
+            raise ValueError("not written by rlmeson")
+        lines = fit.report_lines(fj)
+    except (OSError, ValueError, KeyError, TypeError) as e:
+        raise UsageError(f"DIR {d}: not a fit directory of rlmeson (fit.json: {type(e).__name__})") from None
+    print("\n".join(lines))
+    return EXIT_OK
+
+
 def cmd_show(args) -> int:
     """The summary of a run directory, read from its summary.json (no numerics)."""
     d = Path(args.dir)
+    if (d / "fit.json").is_file() and not (d / "summary.json").exists():
+        return _show_fit(d)
     if (d / "scan.json").is_file() and not (d / "summary.json").exists():
         return _show_scan(d)
     try:
@@ -610,6 +673,10 @@ def _is_run_directory(d: Path) -> bool:
     try:
         return json.loads((d / "summary.json").read_text(encoding="utf-8")).get("package") == "rlmeson"
     except (OSError, ValueError, AttributeError):
+        pass
+    try:   # a fit directory (fit.json)
+        return json.loads((d / "fit.json").read_text(encoding="utf-8")).get("package") == "rlmeson"
+    except (OSError, ValueError, AttributeError):
         return False
 
 
@@ -728,7 +795,7 @@ def _main(argv) -> int:
         except SystemExit as e:  # --help, --version
             return EXIT_OK if not e.code else EXIT_BAD_INPUT
         return {"quark": cmd_quark, "run": cmd_run, "plot": cmd_plot, "export": cmd_export,
-                "show": cmd_show, "scan": cmd_scan}[args.command](args)
+                "show": cmd_show, "scan": cmd_scan, "fit": cmd_fit}[args.command](args)
     except (ConfigError, UsageError) as e:
         print(f"rlmeson: {e}", file=sys.stderr)
         return EXIT_BAD_INPUT

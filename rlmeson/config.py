@@ -374,10 +374,10 @@ def _fields(cls) -> tuple[str, ...]:
 
 
 TOP_KEYS = ("name", "description", "interaction", "kernel", "renormalisation", "quarks",
-            "mesons", "numerics", "output", "scan")
-#: Tables read by the workflows, not by a single run (``scan``): accepted here, validated
-#: there, and no part of a run's physics or hash.
-WORKFLOW_KEYS = ("scan",)
+            "mesons", "numerics", "output", "scan", "fit")
+#: Tables read by the workflows, not by a single run (``scan``, ``fit``): accepted here,
+#: validated there, and no part of a run's physics or hash.
+WORKFLOW_KEYS = ("scan", "fit")
 MESON_KEYS = _fields(MesonConfig)
 
 

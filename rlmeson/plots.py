@@ -400,3 +400,34 @@ def scan_figures(ds, out_dir, fmt: str = "png") -> list[Path]:
         tidy(ax)
         files.append(_save(fig, out_dir / f"scan_{name}.{fmt}"))
     return files
+
+
+def fit_figure(fj: dict, path) -> Path:
+    """A fit's course from its fit.json content: |pull| of every target per evaluation
+    (log scale; Jacobian points filled) and each parameter relative to its fitted value."""
+    plt = _plt()
+    hist = [h for h in fj["history"] if h.get("ok")]
+    fig, (a1, a2) = plt.subplots(1, 2, figsize=(10, 4))
+    n = [h["evaluation"] for h in hist]
+    for t in fj["targets"]:
+        y = [max(abs(h["residuals"][t]), 1e-16) for h in hist]
+        line, = a1.plot(n, y, marker="o", ms=3, label=t)
+        jn = [h["evaluation"] for h in hist if h["jacobian_evaluated"]]
+        jy = [max(abs(h["residuals"][t]), 1e-16) for h in hist if h["jacobian_evaluated"]]
+        a1.plot(jn, jy, "o", ms=6, mfc="none", color=line.get_color())
+    a1.set_yscale("log")
+    a1.set_xlabel("evaluation (circled: Jacobian evaluated)")
+    a1.set_ylabel("|achieved − target| / uncertainty")
+    a1.legend(fontsize=7)
+    for p, v in fj["parameters"].items():
+        a2.plot(n, [h["parameters"][p] / v for h in hist], marker="o", ms=3, label=p)
+    a2.axhline(1.0, color="0.6", lw=0.8)
+    a2.set_xlabel("evaluation")
+    a2.set_ylabel("parameter / fitted value")
+    a2.legend(fontsize=7)
+    for ax in (a1, a2):
+        tidy(ax)
+    fig.suptitle(f"fit of {fj['config']}: chi2 = {fj['chi2']:.3g}, "
+                 f"{'converged' if fj['converged'] else 'not converged'} after {fj['iterations']} iterations",
+                 fontsize=9)
+    return _save(fig, path)

@@ -1,0 +1,301 @@
+"""The ``[fit]`` table of a config: what a fit varies and what it aims at (our own layout,
+read without importing the numerics)::
+
+    [fit]
+    derivatives = "exact"            # or "central" (default "exact" where available)
+    max_iterations = 30              # least-squares evaluations at most
+
+    [[fit.parameter]]
+    key = "interaction.strength_gev2"        # any interaction parameter of the model ...
+    bounds = [0.5, 1.5]
+    # start = 0.8                            # default: the value in the config
+    # linked = { key = "interaction.omega_gev", product = 0.372 }
+    #   the linked key follows as product / value (D at fixed omega D: a Qin-Chang family);
+    #   product defaults to the starting config's value of key times linked key
+
+    [[fit.parameter]]
+    key = "quarks.l.current_mass_gev"        # ... or any flavour's current mass
+    bounds = [0.001, 0.01]
+
+    [[fit.target]]
+    meson = "pion"                           # a meson listed in the config
+    observable = "mass_gev"                  # or "decay_constant_gev"
+    value = 0.138                            # GeV; decay constants in the config's convention
+    uncertainty = 0.001
+
+Without ``[[fit.target]]`` tables the targets are the pion defaults for the first
+equal-flavour pseudoscalar meson of the config: the charged-pion mass and its uncertainty
+(PDG, through the ``particle`` package) and f_π = 130.2 ± 1.2 MeV in the √2 convention
+(PDG, from memory), i.e. 0.0921 ± 0.0008 GeV in the 92 MeV one.  A target that names a
+pseudoscalar with neither ``value`` nor ``uncertainty`` takes the same default.
+"""
+
+from __future__ import annotations
+
+import importlib.util
+import math
+from dataclasses import dataclass
+
+from .config import Config, ConfigError, apply_overrides, from_dict
+
+OBSERVABLES = ("mass_gev", "decay_constant_gev")
+DERIVATIVES = ("exact", "central")
+#: f_π⁺ in the √2 convention, GeV (PDG, from memory): 130.2 ± 1.2 MeV.
+F_PI_SQRT2_GEV, F_PI_SQRT2_ERROR_GEV = 0.1302, 0.0012
+#: The charged pion's PDG id (for its mass through ``particle``).
+PI_PLUS_PDGID = 211
+
+
+def exact_available() -> bool:
+    """Whether the exact derivatives (``rlmeson.sensitivity``) are part of this install."""
+    return importlib.util.find_spec("rlmeson.sensitivity") is not None
+
+
+def default_pion_targets(convention: str) -> dict[str, tuple[float, float]]:
+    """{"mass_gev": (value, uncertainty), "decay_constant_gev": (value, uncertainty)} of
+    the physical charged pion, f in ``convention`` ("92" or "131")."""
+    from particle import Particle
+
+    p = Particle.from_pdgid(PI_PLUS_PDGID)
+    mass = (p.mass / 1e3, max(p.mass_upper or 0.0, p.mass_lower or 0.0) / 1e3)   # MeV -> GeV
+    k = 1.0 / math.sqrt(2.0) if convention == "92" else 1.0
+    return {"mass_gev": mass, "decay_constant_gev": (F_PI_SQRT2_GEV * k, F_PI_SQRT2_ERROR_GEV * k)}
+
+
+@dataclass(frozen=True)
+class Parameter:
+    key: str
+    start: float
+    lower: float
+    upper: float
+    linked_key: str | None = None
+    linked_product: float | None = None
+
+    @property
+    def keys(self) -> tuple[str, ...]:
+        """The config keys this parameter moves."""
+        return (self.key,) if self.linked_key is None else (self.key, self.linked_key)
+
+    def overrides(self, value: float) -> list[str]:
+        out = [f"{self.key}={float(value)!r}"]
+        if self.linked_key is not None:
+            out.append(f"{self.linked_key}={self.linked_product / float(value)!r}")
+        return out
+
+    def chain(self, value: float) -> tuple[float, ...]:
+        """d(config keys)/d(parameter) at ``value``: 1 and, when linked, −product/value²."""
+        return (1.0,) if self.linked_key is None else (1.0, -self.linked_product / float(value) ** 2)
+
+
+@dataclass(frozen=True)
+class Target:
+    meson: str
+    observable: str
+    value: float
+    uncertainty: float
+    source: str
+
+    @property
+    def name(self) -> str:
+        return f"{self.meson}.{self.observable}"
+
+
+@dataclass(frozen=True)
+class FitSpec:
+    base: dict                  # the config's TOML layout without [fit]
+    parameters: tuple[Parameter, ...]
+    targets: tuple[Target, ...]
+    derivatives: str
+    max_iterations: int
+    name: str
+    convention: str
+
+    def config_at(self, values) -> Config:
+        over = [o for p, v in zip(self.parameters, values) for o in p.overrides(v)]
+        return from_dict(apply_overrides(self.base, over),
+                         source=f"fit point {dict(zip((p.key for p in self.parameters), map(float, values)))}")
+
+    def dict_at(self, values) -> dict:
+        return apply_overrides(self.base, [o for p, v in zip(self.parameters, values) for o in p.overrides(v)])
+
+    @property
+    def start(self) -> tuple[float, ...]:
+        return tuple(p.start for p in self.parameters)
+
+    @property
+    def config_keys(self) -> tuple[str, ...]:
+        return tuple(k for p in self.parameters for k in p.keys)
+
+
+def _number(key, v):
+    if isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(v):
+        raise ConfigError(key, v, "a finite number")
+    return float(v)
+
+
+def _value_of(cfg: Config, key: str):
+    """The config's value of a fittable key, or None when the key is not fittable."""
+    parts = key.split(".")
+    if len(parts) == 2 and parts[0] == "interaction":
+        return cfg.interaction.param_dict().get(parts[1])
+    if len(parts) == 3 and parts[0] == "quarks" and parts[2] == "current_mass_gev":
+        return next((f.current_mass_gev for f in cfg.flavours if f.name == parts[1]), None)
+    return None
+
+
+def _fittable(cfg: Config) -> str:
+    return ("an interaction parameter (" + ", ".join(f"interaction.{k}" for k in cfg.interaction.param_dict())
+            + ") or a flavour's current mass (" + ", ".join(f"quarks.{f.name}.current_mass_gev"
+                                                           for f in cfg.flavours) + ")")
+
+
+def _parameter(i: int, t, cfg: Config) -> Parameter:
+    where = f"fit.parameter[{i + 1}]"
+    if not isinstance(t, dict):
+        raise ConfigError(where, t, "a table with key and bounds")
+    unknown = set(t) - {"key", "bounds", "start", "linked"}
+    if unknown:
+        k = sorted(unknown)[0]
+        raise ConfigError(f"{where}.{k}", t[k], "unknown key; allowed: key, bounds, start, linked")
+    key = t.get("key")
+    if not isinstance(key, str) or _value_of(cfg, key) is None:
+        raise ConfigError(f"{where}.key", key, _fittable(cfg))
+    b = t.get("bounds")
+    if not isinstance(b, list) or len(b) != 2:
+        raise ConfigError(f"{where}.bounds", b, "[lower, upper], two numbers")
+    lo, hi = _number(f"{where}.bounds[1]", b[0]), _number(f"{where}.bounds[2]", b[1])
+    if not lo < hi:
+        raise ConfigError(f"{where}.bounds", b, "lower < upper")
+    start = _number(f"{where}.start", t["start"]) if "start" in t else float(_value_of(cfg, key))
+    if not lo <= start <= hi:
+        raise ConfigError(f"{where}.start" if "start" in t else key, start,
+                          f"a starting value within {where}.bounds = [{lo:g}, {hi:g}]")
+    linked = t.get("linked")
+    lk = lp = None
+    if linked is not None:
+        if not isinstance(linked, dict) or not set(linked) <= {"key", "product"} or "key" not in linked:
+            raise ConfigError(f"{where}.linked", linked, "{ key = \"<config key>\", product = <number> } "
+                                                         "(linked value = product / parameter value)")
+        lk = linked["key"]
+        if not isinstance(lk, str) or _value_of(cfg, lk) is None or lk == key:
+            raise ConfigError(f"{where}.linked.key", lk, "another " + _fittable(cfg))
+        lp = (_number(f"{where}.linked.product", linked["product"]) if "product" in linked
+              else float(_value_of(cfg, key)) * float(_value_of(cfg, lk)))
+        if lp == 0 or lo <= 0 <= hi:
+            raise ConfigError(f"{where}.bounds" if lp != 0 else f"{where}.linked.product", b if lp != 0 else lp,
+                              "a non-zero product and bounds not containing 0 for a linked parameter")
+    return Parameter(key=key, start=start, lower=lo, upper=hi, linked_key=lk, linked_product=lp)
+
+
+def _target(i: int, t, cfg: Config) -> Target:
+    where = f"fit.target[{i + 1}]"
+    if not isinstance(t, dict):
+        raise ConfigError(where, t, "a table with meson, observable, value and uncertainty")
+    unknown = set(t) - {"meson", "observable", "value", "uncertainty"}
+    if unknown:
+        k = sorted(unknown)[0]
+        raise ConfigError(f"{where}.{k}", t[k], "unknown key; allowed: meson, observable, value, uncertainty")
+    names = [m.name for m in cfg.mesons]
+    meson = t.get("meson")
+    if meson not in names:
+        raise ConfigError(f"{where}.meson", meson, "the name of a meson listed in the config: "
+                          + (", ".join(names) or "(none listed)"))
+    obs = t.get("observable")
+    if obs not in OBSERVABLES:
+        raise ConfigError(f"{where}.observable", obs, "one of " + ", ".join(map(repr, OBSERVABLES)))
+    m = next(x for x in cfg.mesons if x.name == meson)
+    if "value" not in t and "uncertainty" not in t:
+        if m.channel != "pseudoscalar" or m.quarks[0] != m.quarks[1]:
+            raise ConfigError(f"{where}.value", None, "required (defaults exist only for an equal-flavour "
+                              "pseudoscalar, the pion)")
+        v, u = default_pion_targets(cfg.output.decay_constant_convention)[obs]
+        return Target(meson, obs, v, u, _default_source(obs))
+    if "value" not in t or "uncertainty" not in t:
+        missing = "value" if "value" not in t else "uncertainty"
+        raise ConfigError(f"{where}.{missing}", None, "required together with "
+                          + ("uncertainty" if missing == "value" else "value"))
+    v = _number(f"{where}.value", t["value"])
+    if not v > 0:
+        raise ConfigError(f"{where}.value", t["value"], "a positive number (GeV)")
+    u = _number(f"{where}.uncertainty", t["uncertainty"])
+    if not u > 0:
+        raise ConfigError(f"{where}.uncertainty", t["uncertainty"], "a positive number (GeV)")
+    return Target(meson, obs, v, u, "config")
+
+
+def _default_source(obs: str) -> str:
+    return ("PDG charged-pion mass and uncertainty (particle package)" if obs == "mass_gev" else
+            "PDG f_pi+ = 130.2 +- 1.2 MeV in the sqrt 2 convention (from memory), in the config's convention")
+
+
+def from_config_dict(d: dict, overrides=()) -> FitSpec:
+    """The fit of a config dict (TOML layout) with a ``[fit]`` table, checked before any work."""
+    d = apply_overrides(d, overrides)
+    t = d.get("fit")
+    if not isinstance(t, dict):
+        raise ConfigError("fit", t, "a [fit] table with at least one [[fit.parameter]]")
+    unknown = set(t) - {"parameter", "target", "derivatives", "max_iterations"}
+    if unknown:
+        k = sorted(unknown)[0]
+        raise ConfigError(f"fit.{k}", t[k], "unknown key; allowed: parameter, target, derivatives, max_iterations")
+    base = {k: v for k, v in d.items() if k != "fit"}
+    cfg = from_dict(base)
+    pt = t.get("parameter")
+    if not isinstance(pt, list) or not pt:
+        raise ConfigError("fit.parameter", pt, "one or more [[fit.parameter]] tables")
+    params = tuple(_parameter(i, p, cfg) for i, p in enumerate(pt))
+    keys = [k for p in params for k in p.keys]
+    if len(set(keys)) != len(keys):
+        raise ConfigError("fit.parameter", keys, "each config key moved by one parameter only")
+    tt = t.get("target")
+    if tt is None:
+        pion = next((m for m in cfg.mesons if m.channel == "pseudoscalar" and m.quarks[0] == m.quarks[1]), None)
+        if pion is None:
+            raise ConfigError("fit.target", None, "[[fit.target]] tables (the pion defaults need an "
+                              "equal-flavour pseudoscalar meson in the config)")
+        tt = [{"meson": pion.name, "observable": o} for o in OBSERVABLES]
+    if not isinstance(tt, list) or not tt:
+        raise ConfigError("fit.target", tt, "one or more [[fit.target]] tables")
+    targets = tuple(_target(i, x, cfg) for i, x in enumerate(tt))
+    names = [x.name for x in targets]
+    if len(set(names)) != len(names):
+        raise ConfigError("fit.target", names, "each (meson, observable) once")
+    if len(params) > len(targets):
+        raise ConfigError("fit.parameter", [p.key for p in params],
+                          f"at most as many parameters as targets ({len(targets)}): the fit would be undetermined")
+    deriv = t.get("derivatives", "exact" if exact_available() else "central")
+    if deriv not in DERIVATIVES:
+        raise ConfigError("fit.derivatives", deriv, "one of " + ", ".join(map(repr, DERIVATIVES)))
+    if deriv == "exact" and not exact_available():
+        raise ConfigError("fit.derivatives", deriv, "'central' (the exact derivatives, rlmeson.sensitivity, are "
+                          "not part of this install)")
+    mi = t.get("max_iterations", 30)
+    if isinstance(mi, bool) or not isinstance(mi, int) or not 1 <= mi <= 500:
+        raise ConfigError("fit.max_iterations", mi, "an integer from 1 to 500")
+    spec = FitSpec(base=base, parameters=params, targets=targets, derivatives=deriv, max_iterations=mi,
+                   name=cfg.name, convention=cfg.output.decay_constant_convention)
+    for corner in (spec.start, tuple(p.lower for p in params), tuple(p.upper for p in params)):
+        spec.config_at(corner)      # every corner of the box a valid config before any work
+    return spec
+
+
+def load(path, overrides=()) -> FitSpec:
+    import tomllib
+    from pathlib import Path
+
+    try:
+        d = tomllib.loads(Path(path).read_text(encoding="utf-8-sig"))
+    except OSError as e:
+        raise ConfigError("<file>", str(path), f"a readable TOML file ({e.strerror or type(e).__name__})") from None
+    except ValueError as e:
+        raise ConfigError("<file>", str(path), f"valid TOML ({e})") from None
+    spec = from_config_dict(d, overrides)
+    cache = spec.base.get("output", {}).get("cache_dir") if isinstance(spec.base.get("output"), dict) else None
+    if isinstance(cache, str):
+        where = Path(cache).expanduser()
+        if not where.is_absolute():
+            base = dict(spec.base)
+            base["output"] = {**base["output"], "cache_dir": str(Path(path).resolve().parent / where)}
+            spec = FitSpec(base=base, parameters=spec.parameters, targets=spec.targets, derivatives=spec.derivatives,
+                           max_iterations=spec.max_iterations, name=spec.name, convention=spec.convention)
+    return spec
