@@ -60,6 +60,9 @@ OBSERVABLES = ("mass_gev", "decay_constant_gev")
 #: Root of λ(M) = 1 to this step in M (GeV): the derivatives are taken at the root, and
 #: finite differences of the values need it far below their step.
 MASS_XTOL = 1e-12
+#: Relative residual of the shifted gap solves of the lean path (the pipeline's 1e-11
+#: leaves noise of ~1e-9 in f through the central-difference slope λ′).
+SHIFTED_TOL = 1e-13
 #: Relative tolerance of the linear solves (shifted tangents, eigenvector derivative).
 LINEAR_RTOL = 1e-12
 #: Relative step of the central differences used where no exact derivative is
@@ -300,17 +303,20 @@ class _Point:
     biorthogonality: float   # |uᵀv| / (|u| |v|)
 
 
-def _point(bs: bse.BoundState, mass: float, v, u0, tangents: dict, nk: int, diag: dict) -> _Point:
+def _point(bs: bse.BoundState, mass: float, v, u0, tangents: dict, nk: int, diag: dict,
+           lam: complex | None = None) -> _Point:
     """Right/left eigenvectors and ∂λ at one mass (the shifted solve at ``mass`` is made
-    or taken from the BoundState's cache)."""
+    or taken from the BoundState's cache); ``lam`` given: ``v`` is already the right
+    eigenvector there."""
     sp, sm, sol1, sol2 = bs.propagators(mass)
     g0 = bs.g0(mass)
     shape = bs.shape
     zf = bs.z2_factor
     arrays = bs.ladder.arrays
     jg0 = jnp.asarray(g0)
-    vals, vecs = bs.eigen(mass, k=1, v0=v)
-    lam, v = complex(vals[0]), vecs[:, 0]
+    if lam is None:
+        vals, vecs = bs.eigen(mass, k=1, v0=v)
+        lam, v = complex(vals[0]), vecs[:, 0]
 
     def amv(x):
         return np.asarray(bse._bse_matvec(jnp.asarray(x.reshape(shape)), jg0, zf, arrays)).reshape(-1)
@@ -372,7 +378,6 @@ class _Context:
     specs: list
     quarks: dict            # flavour -> GapSolution
     qtan: dict              # flavour -> _QuarkTangents (None when values only)
-    dlam_cache: dict        # (n_s, n_l) -> [dlam per key] slices
     full_dlam: list
     timings: dict
 
@@ -410,35 +415,22 @@ def _is_exact(cfg, meson, specs, quarks) -> bool:
     return not any(kind == "mass" and cfg.flavour(name).current_mass_gev == 0.0 for kind, name in specs)
 
 
-def observables_with_gradient(cfg: Config, keys, wanted, store=None, warm=None) -> Gradients:
-    """The wanted observables and their derivatives with respect to ``keys`` (config keys:
-    ``interaction.<parameter>``, ``quarks.<flavour>.current_mass_gev``).
-
-    ``wanted``: (meson name, "mass_gev" | "decay_constant_gev"); the decay constant in the
-    config's convention.  ``warm``: the ``state`` of a previous call (same config apart
-    from parameter values) to start the solves from.  ``store`` is accepted for the
-    pipeline's interface and not used: nothing of this lean path is cached on disk."""
+def _prepare(cfg: Config, keys, mesons, warm: dict):
+    """Gap solutions of the flavours the mesons need and, for the mesons differentiated
+    exactly, the kernel's and the quarks' tangents."""
     t0 = time.perf_counter()
-    keys = list(keys)
     specs = [parse_key(cfg, k) for k in keys]
-    items = _wanted(cfg, wanted)
-    warm = warm if isinstance(warm, dict) else {}
     theta = np.array([key_value(cfg, k) for k in keys])
     kern = _kernel(cfg)
-    need = sorted({q for m, _ in items for q in m.quarks})
+    need = sorted({q for m in mesons for q in m.quarks})
     quarks = {}
     for f in need:
         g = warm.get("quarks", {}).get(f)
         quarks[f] = gap.solve(kern, cfg.flavour(f).current_mass_gev, cfg.renormalisation_point_gev,
                               _gap_grid(cfg), guess=g if g is not None and g.q2.size else None)
     timings = {"gap": time.perf_counter() - t0}
-    mesons = []
-    for m, _ in items:
-        if m not in mesons:
-            mesons.append(m)
     exact = {m.name: _is_exact(cfg, m, specs, quarks) for m in mesons}
-    ctx = _Context(cfg=cfg, kern=kern, specs=specs, quarks=quarks, qtan={}, dlam_cache={}, full_dlam=[],
-                   timings=timings)
+    ctx = _Context(cfg=cfg, kern=kern, specs=specs, quarks=quarks, qtan={}, full_dlam=[], timings=timings)
     if any(exact.values()) and specs:
         t1 = time.perf_counter()
         grid = _bse_grid(cfg)
@@ -453,6 +445,27 @@ def observables_with_gradient(cfg: Config, keys, wanted, store=None, warm=None) 
         for f in need:
             ctx.qtan[f] = _quark_tangents(quarks[f], f, specs, True)
         timings["quark_tangents"] = time.perf_counter() - t1
+    return ctx, theta, exact
+
+
+def observables_with_gradient(cfg: Config, keys, wanted, store=None, warm=None) -> Gradients:
+    """The wanted observables and their derivatives with respect to ``keys`` (config keys:
+    ``interaction.<parameter>``, ``quarks.<flavour>.current_mass_gev``).
+
+    ``wanted``: (meson name, "mass_gev" | "decay_constant_gev"); the decay constant in the
+    config's convention.  ``warm``: the ``state`` of a previous call (same config apart
+    from parameter values) to start the solves from.  ``store`` is accepted for the
+    pipeline's interface and not used: nothing of this lean path is cached on disk."""
+    t0 = time.perf_counter()
+    keys = list(keys)
+    items = _wanted(cfg, wanted)
+    mesons = []
+    for m, _ in items:
+        if m not in mesons:
+            mesons.append(m)
+    warm = warm if isinstance(warm, dict) else {}
+    ctx, theta, exact = _prepare(cfg, keys, mesons, warm)
+    specs, quarks, timings = ctx.specs, ctx.quarks, ctx.timings
     diagnostics = {"mesons": {}}
     results = {}
     new_state = {"keys": keys, "theta": theta, "quarks": quarks, "mesons": {}}
@@ -540,7 +553,8 @@ def _bound_state(ctx: _Context, meson, wm, qop):
     m_max = min(2.2 * m1 * (0.5 / eta), 2.2 * m2 * (0.5 / (1.0 - eta)))
     ch = channels.get(meson.channel)
     bs = bse.BoundState(ctx.kern, ch, _bse_grid(cfg), sols[0], sols[1] if meson.quarks[1] != meson.quarks[0] else None,
-                        eta=eta, continuation=cfg.bse.continuation, max_mass=m_max, quark_operator=qop)
+                        eta=eta, continuation=cfg.bse.continuation, max_mass=m_max, quark_operator=qop,
+                        shifted_tol=SHIFTED_TOL)
     if wm and bs._shifted is not None:
         bs._history = [h for h in wm.get("history", []) if h.eta == bs.eta]
         bs._history2 = [h for h in wm.get("history2", [])]
@@ -575,13 +589,13 @@ def _meson_values(ctx, meson, wm, warm, theta, qop):
     bs, ch, sols, eta, m_max = _bound_state(ctx, meson, wm, qop)
     chiral = sols[0].chiral and sols[1].chiral and ch.name == "pseudoscalar"
     if chiral:
-        norms = [_normalise(bs, m, (wm or {}).get("vec"))[0] for m in observables.CHIRAL_PROBES_GEV]
+        norms = [_normalise(bs, m, None)[0] for m in observables.CHIRAL_PROBES_GEV]
         nrm = observables.chiral_limit(*norms)
         mass, vec = 0.0, None
     else:
         sol = _find(bs, meson, ch, sols, m_max, wm, warm, theta)
         mass = sol.mass_gev
-        nrm, vec, _ = _normalise(bs, mass, sol.eigenvector)
+        nrm, vec, _, _ = _normalise(bs, mass, sol.eigenvector)
     res = {"mass_gev": mass, "decay_constant_gev": nrm.decay_constant,
            "diagnostics": {"eta": eta, "search_limit_gev": m_max, "shifted_residual": bs.shifted_residual,
                            "normalisation_agreement": nrm.normalisation_agreement}}
@@ -597,8 +611,40 @@ def _normalise(bs, mass, vec):
     for m in observables.derivative_masses(mass):
         lv, lw = bs.eigen(m, k=1, v0=v)
         lam[m] = float(lv[0].real)
-        side[m] = lw[:, 0]
-    return observables.normalise(bs, mass, v, lam), v, side
+        side[m] = (complex(lv[0]), lw[:, 0])
+    return observables.normalise(bs, mass, v, lam), v, side, complex(vals[0])
+
+
+def _tangents(ctx, meson, bs, sols) -> dict:
+    """The tangents shared by every mass point of one meson: the quarks', the kernels'
+    (sliced to each operator's moments) and that of the factor Z₂²."""
+    nk = len(ctx.specs)
+    n_l_b, n_s_b = bs.ladder.arrays[0].shape[2], bs.ladder.arrays[0].shape[1]
+    n_l_q, n_s_q = bs._qop.arrays[0].shape[2], bs._qop.arrays[0].shape[1]
+    dlam_b = [None if d is None else d[:, :n_s_b, :n_l_b] for d in ctx.full_dlam]
+    dlam_q = [None if d is None else d[:, :n_s_q, :n_l_q] for d in ctx.full_dlam]
+    qt1, qt2 = ctx.qtan[meson.quarks[0]], ctx.qtan[meson.quarks[1]]
+    z21, z22 = sols[0].z2, sols[1].z2
+    dzf = [(qt1.dz2[k] * z22 + z21 * qt2.dz2[k]) if ctx.kern.z2_squared else 0.0 for k in range(nk)]
+    return {"q": (qt1, qt2), "dlam_q": dlam_q, "dlam": dlam_b, "dzf": dzf}
+
+
+def eigenvalue_with_gradient(cfg: Config, keys, meson_name: str, mass_gev: float):
+    """(λ, ∂λ/∂θ per key, ∂λ/∂M) of the leading eigenvalue of the meson's BSE at fixed
+    P² = −M² (``mass_gev``), by first-order perturbation with left and right
+    eigenvectors; with ``keys`` empty only λ is computed.  The check of the method
+    against differences of λ at fixed M (tests) and a tool for diagnostics."""
+    keys = list(keys)
+    meson = _wanted(cfg, [(meson_name, "mass_gev")])[0][0]
+    ctx, _, exact = _prepare(cfg, keys, [meson], {})
+    bs, ch, sols, eta, m_max = _bound_state(ctx, meson, None, None)
+    if not keys:
+        return complex(bs.eigen(mass_gev, k=1)[0][0]), np.zeros(0), None
+    if not exact[meson.name]:
+        raise NotImplementedError("exact eigenvalue derivatives need the shifted continuation and no chiral-limit mass key")
+    nk = len(keys)
+    pt = _point(bs, mass_gev, None, None, _tangents(ctx, meson, bs, sols), nk, {})
+    return pt.lam, pt.dlam[:nk], pt.dlam[nk]
 
 
 def _meson_exact(ctx, meson, wm, warm, theta, qop):
@@ -607,25 +653,17 @@ def _meson_exact(ctx, meson, wm, warm, theta, qop):
     nk = len(ctx.specs)
     sol = _find(bs, meson, ch, sols, m_max, wm, warm, theta)
     mass = sol.mass_gev
-    nrm, v, side = _normalise(bs, mass, sol.eigenvector)
+    nrm, v, side, lam0 = _normalise(bs, mass, sol.eigenvector)
     t_search = time.perf_counter() - t0
-    # tangents shared by every mass point of this meson
-    n_l_b, n_s_b = bs.ladder.arrays[0].shape[2], bs.ladder.arrays[0].shape[1]
-    n_l_q, n_s_q = bs._qop.arrays[0].shape[2], bs._qop.arrays[0].shape[1]
-    dlam_b = [None if d is None else d[:, :n_s_b, :n_l_b] for d in ctx.full_dlam]
-    dlam_q = [None if d is None else d[:, :n_s_q, :n_l_q] for d in ctx.full_dlam]
-    qt1, qt2 = ctx.qtan[meson.quarks[0]], ctx.qtan[meson.quarks[1]]
-    z2sq = ctx.kern.z2_squared
-    z21, z22 = sols[0].z2, sols[1].z2
-    dzf = [(qt1.dz2[k] * z22 + z21 * qt2.dz2[k]) if z2sq else 0.0 for k in range(nk)]
-    tangents = {"q": (qt1, qt2), "dlam_q": dlam_q, "dlam": dlam_b, "dzf": dzf}
+    tangents = _tangents(ctx, meson, bs, sols)
+    qt1, qt2 = tangents["q"]
     diag = {}
     u0 = (wm or {}).get("u")
     if u0 is not None and np.shape(u0) != (bs.size,):
         u0 = None
-    pt = _point(bs, mass, v, u0, tangents, nk, diag)
+    pt = _point(bs, mass, v, u0, tangents, nk, diag, lam=lam0)
     mpm = observables.derivative_masses(mass)
-    side_pts = [_point(bs, m, side[m], pt.u, tangents, nk, diag) for m in mpm]
+    side_pts = [_point(bs, m, side[m][1], pt.u, tangents, nk, diag, lam=side[m][0]) for m in mpm]
     t_points = time.perf_counter() - t0 - t_search
     # mass
     dlam_th = pt.dlam[:nk].real
