@@ -192,7 +192,7 @@ def moments(kernel: Kernel, grid: LadderGrid, n_l: int, n_s: int, block: int = 8
         return hit[2][:, :n_s, :n_l]
     if hit is not None:
         n_l, n_s = max(n_l, hit[0]), max(n_s, hit[1])
-    mu = _raw_moments(kernel, grid, n_l + n_s - 1, block)  # (P, Q, n_u, 4)
+    mu = _raw_moments(kernel, grid, n_l + n_s - 1, block)[0]  # (P, Q, n_u, 4)
     lam = _lam_from_mu(mu, grid.radial.q2, n_l, n_s)
     if len(_MOMENT_CACHE) > 8:
         _MOMENT_CACHE.clear()
@@ -200,9 +200,9 @@ def moments(kernel: Kernel, grid: LadderGrid, n_l: int, n_s: int, block: int = 8
     return lam
 
 
-def _raw_moments(kernel: Kernel, grid: LadderGrid, n_u: int, block: int, form=None, jparams=None):
-    """μ (P, Q, n_u, 4) of ``_moments_block`` on the grid's nodes, for ``kernel.form`` or
-    another object with ``g(s, jparams)``."""
+def _raw_moments(kernel: Kernel, grid: LadderGrid, n_u: int, block: int, pairs=None):
+    """[μ (P, Q, n_u, 4)] of ``_moments_block`` on the grid's nodes for each (form,
+    jparams) of ``pairs`` (default: the kernel's own), on one set of rules."""
     from .selfenergy import RuleSet, fine_levels
 
     rad = grid.radial
@@ -210,20 +210,20 @@ def _raw_moments(kernel: Kernel, grid: LadderGrid, n_u: int, block: int, form=No
     levels = fine_levels(kernel, rad)
     tabs = qd.angular_tables(grid.angular_half)
     tables = tuple(jnp.asarray(tabs[k]) for k in ("half", "x", "s2w"))
-    form = kernel.form if form is None else form
-    jp = kernel.jparams() if jparams is None else jparams
+    pairs = [(kernel.form, kernel.jparams())] if pairs is None else pairs
     k_res = kernel.resolution_gev
     T = pabs.size
     nb = -(-T // block)
     pp = np.concatenate([pabs, np.full(nb * block - T, pabs[-1])])
-    outs = []
+    outs = [[] for _ in pairs]
     for b in range(nb):
         sl = pp[b * block:(b + 1) * block]
         rs = RuleSet(rad, sl * sl, k_res, levels, grid.fine_order)
         fr = rs.fine
-        outs.append(_moments_block(form, jp, jnp.asarray(sl), fr.t, fr.w, fr.idx, fr.lag,
-                                   rs.level, *tables, rad.size, n_u))
-    return np.asarray(jnp.concatenate(outs)[:T])
+        for (form, jp), out in zip(pairs, outs):
+            out.append(_moments_block(form, jp, jnp.asarray(sl), fr.t, fr.w, fr.idx, fr.lag,
+                                      rs.level, *tables, rad.size, n_u))
+    return [np.asarray(jnp.concatenate(o)[:T]) for o in outs]
 
 
 def _lam_from_mu(mu, qn2, n_l: int, n_s: int) -> np.ndarray:
@@ -245,14 +245,23 @@ def moment_sizes(channel: Channel, sign: float, n_z: int) -> tuple[int, int]:
     return n_z + db, ds + 1
 
 
-def moments_tangent(kernel: Kernel, grid: LadderGrid, n_l: int, n_s: int, direction, block: int = 8):
-    """dΛ/dθ along ``direction`` (dict parameter name → tangent): ``moments`` with g
-    replaced by its forward-mode derivative in the interaction parameters, at the same
-    quadrature rules (which follow ``kernel.resolution_gev`` and are held fixed)."""
+def moments_with_tangents(kernel: Kernel, grid: LadderGrid, n_l: int, n_s: int, directions, block: int = 8):
+    """[Λ, dΛ/dθ per direction]: ``moments`` and its derivatives along ``directions``
+    (dicts parameter name → tangent) in the interaction parameters, by forward-mode
+    differentiation of g (``kernel.TangentForm``) on the same quadrature rules (built
+    once; they follow ``kernel.resolution_gev`` and are held fixed).  Λ fills the moment
+    cache, so operators built afterwards on this grid reuse it."""
     from .kernel import TangentForm
 
-    mu = _raw_moments(kernel, grid, n_l + n_s - 1, block, TangentForm(kernel.form), kernel.jtangent(direction))
-    return _lam_from_mu(mu, grid.radial.q2, n_l, n_s)
+    pairs = [(kernel.form, kernel.jparams())] + [(TangentForm(kernel.form), kernel.jtangent(d)) for d in directions]
+    out = [_lam_from_mu(mu, grid.radial.q2, n_l, n_s) for mu in _raw_moments(kernel, grid, n_l + n_s - 1, block, pairs)]
+    key = (kernel.form, tuple(sorted((k, float(v)) for k, v in kernel.params.items())), grid)
+    hit = _MOMENT_CACHE.get(key)
+    if hit is None or hit[0] < n_l or hit[1] < n_s:
+        if len(_MOMENT_CACHE) > 8:
+            _MOMENT_CACHE.clear()
+        _MOMENT_CACHE[key] = (n_l, n_s, out[0])
+    return out
 
 
 # ----------------------------------------------------------------------------------------

@@ -78,41 +78,46 @@ def _rows_block(form, jparams, p2, t_f, w_f, idx, lag, level, tables, n_nodes: i
 
 
 def rows(kernel: Kernel, grid: qd.RadialGrid, p2, *, n_half: int = 40, levels: int | None = None,
-         order: int = 6, block: int = 16, jparams=None, form=None):
-    """(R_A, R_B) of shape (T, N) for targets p2 (real ≥ 0 or complex).  ``form``: another
-    object with ``g(s, jparams)`` in place of ``kernel.form`` (``rows_tangent``)."""
+         order: int = 6, block: int = 16, jparams=None):
+    """(R_A, R_B) of shape (T, N) for targets p2 (real ≥ 0 or complex)."""
+    jparams = kernel.jparams() if jparams is None else jparams
+    return _rows_of(kernel, grid, p2, [(kernel.form, jparams)], n_half, levels, order, block)[0]
+
+
+def rows_with_tangents(kernel: Kernel, grid: qd.RadialGrid, p2, directions, *, n_half: int = 40,
+                       levels: int | None = None, order: int = 6, block: int = 16):
+    """[(R_A, R_B), (dR_A, dR_B) per direction]: ``rows`` and its derivatives along
+    ``directions`` (dicts parameter name → tangent) in the interaction parameters, by
+    forward-mode differentiation of g (``kernel.TangentForm``) on the same quadrature rules
+    (built once; they follow ``kernel.resolution_gev`` and are held fixed)."""
+    from .kernel import TangentForm
+
+    pairs = [(kernel.form, kernel.jparams())] + [(TangentForm(kernel.form), kernel.jtangent(d)) for d in directions]
+    return _rows_of(kernel, grid, p2, pairs, n_half, levels, order, block)
+
+
+def _rows_of(kernel: Kernel, grid: qd.RadialGrid, p2, pairs, n_half, levels, order, block):
+    """Rows for each (form, jparams) of ``pairs`` on one set of target-adapted rules."""
     p2 = np.atleast_1d(np.asarray(p2))
     cplx = np.iscomplexobj(p2)
     if levels is None:
         levels = fine_levels(kernel, grid)
-    if jparams is None:
-        jparams = kernel.jparams()
     T = p2.size
     nb = -(-T // block)
     pad = nb * block - T
     p2p = np.concatenate([p2, np.full(pad, p2[-1] if T else 1.0, dtype=p2.dtype)])
-    out_a, out_b = [], []
+    outs = [([], []) for _ in pairs]
     tables = {k: jnp.asarray(v) for k, v in qd.angular_tables(n_half).items()}
     for b in range(nb):
         sl = p2p[b * block:(b + 1) * block]
         rs = RuleSet(grid, sl, kernel.resolution_gev, levels, order)
         dt = jnp.complex128 if cplx else jnp.float64
-        ra, rb = _rows_block(kernel.form if form is None else form, jparams, jnp.asarray(sl, dtype=dt), rs.fine.t, rs.fine.w,
-                             rs.fine.idx, rs.fine.lag, rs.level, tables, grid.size)
-        out_a.append(ra)
-        out_b.append(rb)
-    ra = jnp.concatenate(out_a)[:T]
-    rb = jnp.concatenate(out_b)[:T]
-    return ra, rb
-
-
-def rows_tangent(kernel: Kernel, grid: qd.RadialGrid, p2, direction, **kw):
-    """(dR_A, dR_B): the derivative of ``rows`` along ``direction`` (dict parameter name →
-    tangent) in the interaction parameters, by forward-mode differentiation of g at the
-    same quadrature rules (which follow ``kernel.resolution_gev`` and are held fixed)."""
-    from .kernel import TangentForm
-
-    return rows(kernel, grid, p2, jparams=kernel.jtangent(direction), form=TangentForm(kernel.form), **kw)
+        for (form, jparams), (out_a, out_b) in zip(pairs, outs):
+            ra, rb = _rows_block(form, jparams, jnp.asarray(sl, dtype=dt), rs.fine.t, rs.fine.w,
+                                 rs.fine.idx, rs.fine.lag, rs.level, tables, grid.size)
+            out_a.append(ra)
+            out_b.append(rb)
+    return [(jnp.concatenate(a)[:T], jnp.concatenate(b)[:T]) for a, b in outs]
 
 
 def fine_levels(kernel: Kernel, grid: qd.RadialGrid) -> int:

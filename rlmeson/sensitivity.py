@@ -7,7 +7,7 @@ For a bound state λ(P² = −M²; θ) = 1 of the operator A(M; θ) = Z₂² K(�
   dM/dθ = −(∂λ/∂θ)/(∂λ/∂M) from λ(−M²; θ) = 1.
 * ∂A/∂θ has three parts: the factor Z₂² (through Z₂), the ladder kernel K (its
   radial–angular moments differentiated by forward mode in the interaction parameters,
-  ``ladder.moments_tangent``) and G₀, which depends on θ and M through the quark
+  ``ladder.moments_with_tangents``) and G₀, which depends on θ and M through the quark
   propagators at q + ηP and q − (1−η)P.
 * Those come from the shifted gap solve X = F(θ, M) − Z₂² K_q(θ) X⁻¹ (``routed``):
   implicit differentiation, one linear solve with its exact JAX linearisation (GMRES,
@@ -15,7 +15,7 @@ For a bound state λ(P² = −M²; θ) = 1 of the operator A(M; θ) = Z₂² K(�
   hard cutoff's boundary term δ come from the real-axis gap equation, differentiated
   implicitly with its converged Newton Jacobian (as ``gap._chiral_z4`` does for Z₄), the
   self-energy rows differentiated in the interaction parameters by forward mode
-  (``selfenergy.rows_tangent``); the current mass enters only there (B equation, Z₄m).
+  (``selfenergy.rows_with_tangents``); the current mass enters only there (B equation, Z₄m).
 * The decay constant f = Z₂ N_c c(M) ∫tr[D χ] / √(λ′ L), χ = G₀ v, is differentiated
   exactly too: the eigenvector's derivative from (A − λ) dv = −(dA − dλ) v (GMRES; f
   does not depend on v's scale, so the component along v is irrelevant), the loop L and
@@ -188,8 +188,16 @@ def _quark_tangents(sol: gap.GapSolution, flavour: str, specs, subtract_boundary
     touched = [k for k, (kind, name) in enumerate(specs) if kind == "param" or name == flavour]
     x = jnp.asarray(np.concatenate([sol.A, sol.B, [sol.z2]]))
     jq2 = jnp.asarray(q2)
-    ra, rb = se.rows(kern, radial, targets, **opts)
-    ral = se.rows(kern, radial, np.array([lam2]), **opts)[0][0] if hard else jnp.zeros(n)
+    params = [name for kind, name in specs if kind == "param"]
+    rows = se.rows_with_tangents(kern, radial, targets, [{p: 1.0} for p in params], **opts)
+    ra, rb = rows[0]
+    drows = dict(zip(params, rows[1:]))
+    if hard:
+        rows_l = se.rows_with_tangents(kern, radial, np.array([lam2]), [{p: 1.0} for p in params], **opts)
+        ral = rows_l[0][0][0]
+        drows_l = {p: r[0][0] for p, r in zip(params, rows_l[1:])}
+    else:
+        ral = jnp.zeros(n)
     gl = jnp.asarray(float(np.real(kern.g(np.array([lam2]))[0]))) if hard else jnp.asarray(0.0)
     kw = dict(z2sq=kern.z2_squared, chiral=chiral, mu=0.0)
     mass = jnp.asarray(sol.mass_gev)
@@ -202,9 +210,9 @@ def _quark_tangents(sol: gap.GapSolution, flavour: str, specs, subtract_boundary
     for k in touched:
         kind, name = specs[k]
         if kind == "param":
-            dra, drb = se.rows_tangent(kern, radial, targets, {name: 1.0}, **opts)
+            dra, drb = drows[name]
             if hard:
-                dral = se.rows_tangent(kern, radial, np.array([lam2]), {name: 1.0}, **opts)[0][0]
+                dral = drows_l[name]
                 p, t = kern.jtangent({name: 1.0})
                 dgl = jnp.real(jax.jvp(lambda pp: kern.form.g(jnp.asarray([lam2]), pp), (p,), (t,))[1][0])
             else:
@@ -438,8 +446,9 @@ def _prepare(cfg: Config, keys, mesons, warm: dict):
         sizes = [ladder.moment_sizes(channels.get(m.channel), -1.0, grid.n_z) for m in mesons if exact[m.name]]
         sizes.append(ladder.moment_sizes(QUARK, 1.0, grid.n_z))
         n_l, n_s = max(s[0] for s in sizes), max(s[1] for s in sizes)
-        ctx.full_dlam = [ladder.moments_tangent(kern, lgrid, n_l, n_s, {name: 1.0}) if kind == "param" else None
-                         for kind, name in specs]
+        params = [name for kind, name in specs if kind == "param"]
+        dl = iter(ladder.moments_with_tangents(kern, lgrid, n_l, n_s, [{p: 1.0} for p in params])[1:])
+        ctx.full_dlam = [next(dl) if kind == "param" else None for kind, _ in specs]
         timings["kernel_tangents"] = time.perf_counter() - t1
         t1 = time.perf_counter()
         for f in need:
