@@ -235,8 +235,9 @@ def _quark_tangents(sol: gap.GapSolution, flavour: str, specs, subtract_boundary
 # Shifted (routed) propagators: tangents by implicit differentiation
 
 def _shifted_tangents(solver: routed.ShiftedSolver, prop: routed.ShiftedPropagator, qt: _QuarkTangents,
-                      dlam_q, z2sq: bool, diag: list):
-    """dX/dθ for each key and dX/dM of a converged shifted solve; [n_keys + 1] arrays."""
+                      dlam_q, z2sq: bool, diag: list, start=None):
+    """dX/dθ for each key and dX/dM of a converged shifted solve; [n_keys + 1] arrays.
+    ``start``: the same at a nearby mass, to start the linear solves from."""
     X = jnp.asarray(prop.X)
     mass, eta = prop.mass_gev, prop.eta
     sol = solver.sol
@@ -273,7 +274,8 @@ def _shifted_tangents(solver: routed.ShiftedSolver, prop: routed.ShiftedPropagat
             out.append(np.zeros(shape, dtype=complex))
             continue
         bw = b.ravel() / w
-        du, info = spla.gmres(op, bw, rtol=LINEAR_RTOL, atol=0.0, restart=150, maxiter=20)
+        x0 = None if start is None else start[k].ravel() / w
+        du, info = spla.gmres(op, bw, x0=x0, rtol=LINEAR_RTOL, atol=0.0, restart=150, maxiter=20)
         res = float(np.linalg.norm(op.matvec(du) - bw) / np.linalg.norm(bw))
         diag.append(res)
         out.append((du * w).reshape(shape))
@@ -309,6 +311,7 @@ class _Point:
     residual_right: float
     residual_left: float
     biorthogonality: float   # |uᵀv| / (|u| |v|)
+    dx: tuple = ()           # the shifted tangents (family 1, family 2 or None)
 
 
 def _point(bs: bse.BoundState, mass: float, v, u0, tangents: dict, nk: int, diag: dict,
@@ -345,12 +348,14 @@ def _point(bs: bse.BoundState, mass: float, v, u0, tangents: dict, nk: int, diag
     dlam_q = tangents["dlam_q"]
     z2sq = bs.kernel.z2_squared
     sdiag = diag.setdefault("shifted_tangent_residuals", [])
-    dx1 = _shifted_tangents(bs._shifted, sol1, q1, dlam_q, z2sq, sdiag)
+    start = tangents.get("start")
+    dx1 = _shifted_tangents(bs._shifted, sol1, q1, dlam_q, z2sq, sdiag, start and start[0])
     dcp = [_coeff_tangent(sol1.X, d, bs.z) for d in dx1]
+    dx2 = None
     if bs._reflect:
         dcm = [props.reflected(d) for d in dcp]
     else:
-        dx2 = _shifted_tangents(bs._shifted2, sol2, q2, dlam_q, z2sq, sdiag)
+        dx2 = _shifted_tangents(bs._shifted2, sol2, q2, dlam_q, z2sq, sdiag, start and start[1])
         dcm = [_coeff_tangent(sol2.X, d, bs.z) for d in dx2]
     z = bs.z
     dG0v, dAv, dlam = [], [], []
@@ -373,7 +378,7 @@ def _point(bs: bse.BoundState, mass: float, v, u0, tangents: dict, nk: int, diag
         dlam.append(complex(np.sum(u * dav.reshape(-1)) / uv))
     return _Point(mass=mass, lam=lam, v=v, u=u, g0=g0, dAv=dAv, dG0v=dG0v, dlam=np.asarray(dlam),
                   residual_right=res_r, residual_left=res_l,
-                  biorthogonality=abs(uv) / (np.linalg.norm(u) * np.linalg.norm(v)))
+                  biorthogonality=abs(uv) / (np.linalg.norm(u) * np.linalg.norm(v)), dx=(dx1, dx2))
 
 
 # ----------------------------------------------------------------------------------------
@@ -672,6 +677,7 @@ def _meson_exact(ctx, meson, wm, warm, theta, qop):
         u0 = None
     pt = _point(bs, mass, v, u0, tangents, nk, diag, lam=lam0)
     mpm = observables.derivative_masses(mass)
+    tangents["start"] = pt.dx
     side_pts = [_point(bs, m, side[m][1], pt.u, tangents, nk, diag, lam=side[m][0]) for m in mpm]
     t_points = time.perf_counter() - t0 - t_search
     # mass
