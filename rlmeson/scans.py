@@ -203,6 +203,8 @@ class PointResult:
     #: read from the store (computed earlier, or by another process sharing the store)
     computed: tuple[str, ...] = ()
     index: int = 0
+    #: peak resident memory of the process that computed the point, after it [MB]
+    peak_rss_mb: float | None = None
 
     @property
     def from_cache(self) -> bool | None:
@@ -225,13 +227,21 @@ def run_point(scan: Scan, point, cache: bool = True, index: int | None = None) -
         computed = tuple([f"quark {f}" for f, q in summ["quarks"].items() if not q.get("from_cache")]
                          + [m["name"] for m in summ["mesons"] if not m.get("from_cache")])
         return PointResult(tuple(point), cfg.hash(), STATUS_OK, "", summ, time.perf_counter() - t0,
-                           computed, index)
+                           computed, index, _peak_rss_mb())
     except KeyboardInterrupt:
         raise
     except Exception as e:  # noqa: BLE001  (a failed point is a result of the scan)
         msg = f"{type(e).__name__}: {' '.join(str(e).split())}"
         return PointResult(tuple(point), cfg.hash(), STATUS_FAILED, msg, None, time.perf_counter() - t0,
-                           (), index)
+                           (), index, _peak_rss_mb())
+
+
+def _peak_rss_mb() -> float | None:
+    try:
+        import resource
+    except ImportError:                       # not on POSIX
+        return None
+    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0   # KiB on Linux
 
 
 def _point_task(args) -> PointResult:
@@ -445,7 +455,7 @@ class ScanResult:
         return [{"number": r.index + 1, "point": dict(zip((a.key for a in self.scan.axes), r.point)),
                  "config_hash": r.config_hash, "status": r.status, "message": r.message, "seconds": r.seconds,
                  "error_bar": self.scan.error_bar_at(r.index),
-                 "from_cache": r.from_cache, "computed": list(r.computed),
+                 "from_cache": r.from_cache, "computed": list(r.computed), "peak_rss_mb": r.peak_rss_mb,
                  "mesons": None if r.summary is None else {m["name"]: {k: m.get(k) for k in MESON_KEYS}
                                                            for m in r.summary["mesons"]}}
                 for r in self.results]
