@@ -417,7 +417,7 @@ def cmd_scan(args) -> int:
     log: list[str] = []
     say = _progress(args.quiet, log)
     n = len(sc.points())
-    ex = executors.make(args.workers, args.dask)
+    ex = executors.make(args.workers, args.dask, n)
     say(f"scan of {sc.name}: {n} points over {', '.join(a.key for a in sc.axes)}; {ex.description}")
     with ex, bar(n, "point", args.quiet, log) as b:
         def each(i, total, r):

@@ -216,10 +216,12 @@ class Dask(Executor):
             self._cluster.close()
 
 
-def make(workers: int | None = 1, dask: str | None = None) -> Executor:
+def make(workers: int | None = 1, dask: str | None = None, tasks: int | None = None) -> Executor:
     """The executor the command line asks for: ``dask`` (an address or ``"local"``) wins;
-    else ``workers`` = 1 in this process, N > 1 (or None: one per core) in worker
-    processes."""
+    else ``workers`` = 1 in this process, N > 1 (or None: one per core, but no more than
+    ``tasks``) in worker processes."""
+    if workers is None and tasks is not None:
+        workers = max(1, min(available_cores(), tasks))
     if dask is not None:
         return Dask(dask, workers)
     if workers == 1:

@@ -267,7 +267,7 @@ def run(scan: Scan, workers: int | None = 1, cache: bool = True, progress=None, 
         say(done[0], len(pts), r)
 
     own = executor is None
-    ex = executors.make(workers, dask) if own else executor
+    ex = executors.make(workers, dask, len(pts)) if own else executor
     try:
         return ex.map(_point_task, [(scan, i, cache) for i in range(len(pts))], each)
     finally:
@@ -494,7 +494,7 @@ def execute(scan: Scan, workers: int | None = 1, dask: str | None = None, cache:
 
     t0 = time.perf_counter()
     own = executor is None
-    ex = executors.make(workers, dask) if own else executor
+    ex = executors.make(workers, dask, len(scan.points())) if own else executor
     try:
         results = run(scan, cache=cache, progress=progress, executor=ex)
     finally:

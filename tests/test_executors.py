@@ -57,6 +57,7 @@ def test_make_picks_the_executor():
     assert isinstance(ex, executors.LocalProcesses) and ex.workers == executors.available_cores()
     assert ex.workers * ex.threads <= executors.available_cores()
     ex.close()
+    assert isinstance(executors.make(None, tasks=1), executors.InProcess)   # no more workers than points
 
 
 def test_dask_local_cluster_keeps_order_and_thread_settings():
