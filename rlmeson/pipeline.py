@@ -19,7 +19,7 @@ from typing import Callable
 import numpy as np
 
 from . import __version__
-from . import bse, channels, gap, observables, quarkplane, search, singularities
+from . import bse, channels, extrapolate, gap, observables, quarkplane, search, singularities
 from .config import Config, ConfigError, MesonConfig, meson_label
 from .kernel import N_C, Kernel
 from .store import Store
@@ -681,6 +681,7 @@ class MesonResult:
             "quarks": list(self.quarks),
             "current_masses_gev": list(self.current_masses_gev),
             "continuation": self.continuation,
+            "flavours": list(self.quarks),
             "eta": self.eta,
             "eta_method": self.eta_method,
             "eta_spread_gev": self.core.eta_spread_gev,
@@ -699,6 +700,7 @@ class MesonResult:
                             "see goldstone_residual = |lambda(P^2 = 0) - 1|" if c.chiral else
                             "root of lambda(P^2 = -M^2) = 1"),
             "mass_error_gev": None,
+            "extrapolated": False,
             "decay_constant_gev": f,
             "decay_constant_error_gev": None,
             "decay_constant_convention": observables.CONVENTION_LABELS[self.convention],
@@ -848,6 +850,9 @@ class RunResult:
     quarks: dict[str, QuarkResult]
     mesons: list[MesonResult]
     seconds: float
+    #: states above M_max whose masses were extrapolated (``extrapolate_meson``); after
+    #: ``mesons`` in the summary's list (exports pair ``mesons`` with its first entries)
+    extrapolated: list[ExtrapolatedMeson] = field(default_factory=list)
 
     def inputs(self) -> dict:
         """The resolved config (defaults filled in, in the nesting of the TOML file) and
@@ -878,7 +883,7 @@ class RunResult:
             "inputs": self.inputs(),
             "quark": self.quarks[first].summary(),
             "quarks": {n: q.summary() for n, q in self.quarks.items()},
-            "mesons": [m.summary() for m in self.mesons],
+            "mesons": [m.summary() for m in self.mesons] + [e.summary() for e in self.extrapolated],
             "seconds": self.seconds,
         }
 
@@ -887,20 +892,117 @@ def run(cfg: Config, store: Store | None = None, progress: Progress = _quiet) ->
     t0 = time.perf_counter()
     needed = [f.name for f in cfg.flavours]
     quarks = {n: solve_quark(cfg, n, store, progress) for n in needed}
-    mesons = []
+    mesons, beyond = [], []
     for i, m in enumerate(cfg.mesons):
         try:
-            mesons.append(solve_meson(cfg, m, quarks, store, progress))
+            try:
+                mesons.append(solve_meson(cfg, m, quarks, store, progress))
+            except search.NoBoundState as e:   # above M_max: extrapolate, or say why not
+                progress(f"{m.name}: {e}")
+                try:
+                    beyond.append(extrapolate_meson(cfg, m, quarks, progress, reason=str(e)))
+                except extrapolate.NotExtrapolable as why:
+                    raise search.NoBoundState(f"{e}; no extrapolation beyond M_max either: {why}") from None
         except (ConfigError, KeyboardInterrupt):
             raise
         except Exception as e:  # say which meson could not be computed
             if e.args and isinstance(e.args[0], str):
                 e.args = (f"{meson_label(i, m.name)}: {e.args[0]}", *e.args[1:])
             raise
-    return RunResult(config=cfg, quarks=quarks, mesons=mesons, seconds=time.perf_counter() - t0)
+    return RunResult(config=cfg, quarks=quarks, mesons=mesons, seconds=time.perf_counter() - t0,
+                     extrapolated=beyond)
 
 
 __all__ = ["run", "solve_quark", "solve_meson", "bound_state", "kernel_of"]
+
+
+# ----------------------------------------------------------------------------------------
+# Beyond the parabola
+
+@dataclass(frozen=True)
+class ExtrapolatedMeson:
+    """A state whose λ(P²) = 1 crossing lies above M_max: its mass estimated by rational
+    continuation of λ(P²) from where it is accessible (``extrapolate``).  There is no
+    amplitude there, hence no decay constant, normalisation or identity check."""
+
+    name: str
+    channel: str
+    quarks: tuple[str, str]
+    current_masses_gev: tuple[float, float]
+    continuation: str
+    eta: float
+    eta_method: str | None
+    limit_gev: float
+    extrapolation: extrapolate.Extrapolation = field(repr=False)
+    reason: str
+    seconds: float
+    convention: str = "92"
+    from_cache: bool = False
+
+    @property
+    def mass_gev(self) -> float:
+        return self.extrapolation.mass_gev
+
+    def summary(self) -> dict:
+        e = self.extrapolation
+        return {
+            "name": self.name,
+            "channel": self.channel,
+            "jpc": channels.get(self.channel).jpc,
+            "quarks": list(self.quarks),
+            "flavours": list(self.quarks),
+            "current_masses_gev": list(self.current_masses_gev),
+            "continuation": self.continuation,
+            "eta": self.eta,
+            "eta_method": self.eta_method,
+            "eta_spread_gev": None,
+            "eta_spread_second_eta": None,
+            "eta_spread_method": "not computed: the mass is extrapolated",
+            "validated": False,
+            "validation_reason": (f"mass extrapolated beyond M_max = {self.limit_gev:.4g} GeV by rational "
+                                  "continuation of lambda(P^2): no amplitude, decay constant or identity check"),
+            "extrapolated": True,
+            "extrapolation_reason": self.reason,
+            "max_bound_state_mass_gev": self.limit_gev,
+            "mass_gev": e.mass_gev,
+            "mass_method": "lambda(P^2 = -M^2) = 1 of rational continuations of lambda(P^2) (see extrapolation)",
+            "mass_error_gev": e.error_gev,
+            "error_estimate": "spread of the rational continuations (degrees and fitted ranges)",
+            "extrapolation": e.summary(),
+            "decay_constant_gev": None,
+            "decay_constant_error_gev": None,
+            "decay_constant_convention": observables.CONVENTION_LABELS[self.convention],
+            "normalisation_agreement": None,
+            "next_eigenvalue": None,
+            "seconds": self.seconds,
+            "from_cache": self.from_cache,
+        }
+
+
+def extrapolate_meson(cfg: Config, meson: MesonConfig, quarks: dict[str, QuarkResult],
+                      progress: Progress = _quiet, limit_gev: float | None = None,
+                      reason: str = "") -> ExtrapolatedMeson:
+    """The mass of a state above M_max (``limit_gev`` overrides M_max: to validate on
+    accessible states) by rational continuation of its leading λ(P²), sampled spacelike
+    and timelike below the limit.  ``extrapolate.NotExtrapolable`` says why not."""
+    t0 = time.perf_counter()
+    q1, q2 = quarks[meson.quarks[0]], quarks[meson.quarks[1]]
+    eta, eta_method = meson_eta(meson, q1, q2)
+    limit = mass_limit(q1, q2, eta) if limit_gev is None else float(limit_gev)
+    if not math.isfinite(limit):
+        raise extrapolate.NotExtrapolable("M_max is not finite: the state is accessible")
+    bs = bse.BoundState(kernel_of(cfg), channels.get(meson.channel), bse_grid_of(cfg), q1.solution,
+                        q2.solution if q2 is not q1 else None, eta=eta,
+                        continuation=cfg.bse.continuation, max_mass=limit)
+    progress(f"{meson.name}: sampling lambda(P^2) below M_max = {limit:.4g} GeV to extrapolate past it")
+    p2, lam = extrapolate.sample(bs, limit)
+    ex = extrapolate.extrapolate(p2, lam)
+    progress(f"{meson.name}: extrapolated M = {ex.mass_gev:.4f} ± {ex.error_gev:.1g} GeV")
+    return ExtrapolatedMeson(name=meson.name, channel=meson.channel, quarks=meson.quarks,
+                             current_masses_gev=(q1.solution.mass_gev, q2.solution.mass_gev),
+                             continuation=cfg.bse.continuation, eta=eta, eta_method=eta_method, limit_gev=limit,
+                             extrapolation=ex, reason=reason, seconds=time.perf_counter() - t0,
+                             convention=cfg.output.decay_constant_convention)
 
 
 # ----------------------------------------------------------------------------------------
