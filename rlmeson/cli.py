@@ -165,9 +165,9 @@ def _manifest(cfg, result, argv) -> dict:
                                                                             "xarray", "h5netcdf")}},
         "timings_seconds": {"total": result.seconds,
                             "quarks": {n: q.seconds for n, q in result.quarks.items()},
-                            "mesons": {m.name: m.seconds for m in result.mesons}},
+                            "mesons": {m.name: m.seconds for m in [*result.mesons, *result.extrapolated]}},
         "from_cache": {"quarks": {n: q.from_cache for n, q in result.quarks.items()},
-                       "mesons": {m.name: m.from_cache for m in result.mesons}},
+                       "mesons": {m.name: m.from_cache for m in [*result.mesons, *result.extrapolated]}},
     }
 
 
@@ -519,7 +519,8 @@ def cmd_show(args) -> int:
         conv = m.get("decay_constant_convention")
         err = m.get("mass_error_gev")
         print(f"  {m['name']:<10}{m['channel']:<14}M = {m['mass_gev']:.6f} GeV"
-              f"{'' if err is None else f' ± {err:.1e}'}   f = {m['decay_constant_gev']:.6f} GeV"
+              f"{'' if err is None else f' ± {err:.1e}'}   f = {_fmt(m['decay_constant_gev'], '.6f')} GeV"
+              f"{'   (extrapolated)' if m.get('extrapolated') else ''}"
               f"{'' if m.get('validated', True) else '   (not validated: ' + str(m.get('validation_reason')) + ')'}")
     if conv:
         print(f"  decay constants: {conv}")
@@ -558,16 +559,20 @@ def _table(result) -> str:
     """The results table: masses with their grid error, f (convention labelled), the
     normalisation agreement, the identity that checks each state (AV-WTI for a massive
     pseudoscalar, |λ(0) − 1| for a chiral-limit Goldstone boson) and the next eigenvalue;
-    results through an unvalidated route are marked and explained below the table."""
+    results through an unvalidated route are marked and explained below the table; the
+    flavours, the momentum partition η and the mass's η spread |M(η₂) − M(η)| close each
+    row; a mass extrapolated beyond M_max shows its extrapolation error and 'extrapolated'."""
     conv = result.config.output.decay_constant_convention
     rows = [f"{result.config.name}: {result.summary()['regularisation_description']}",
             f"{'meson':<10}{'channel':<14}{'M [GeV]':>12}{'± (grid)':>10}{'f [GeV]':>11}{'± (grid)':>10}"
-            f"{'N agree':>9}{'identity':>17}{'next λ':>8}",
-            "-" * 101]
+            f"{'N agree':>9}{'identity':>17}{'next λ':>8}{'quarks':>8}{'η':>7}{'Δ_η M':>9}{'C':>4}{'n':>3}",
+            "-" * 132]
     notes = []
-    for m in result.mesons:
+    for m in [*result.mesons, *getattr(result, "extrapolated", [])]:
         s = m.summary()
-        if "goldstone_residual" in s:
+        if s.get("extrapolated"):
+            mass, err, ident = f"{s['mass_gev']:.6f}", _fmt(s["mass_error_gev"], ".1e"), "extrapolated"
+        elif "goldstone_residual" in s:
             mass, err = "0 (chiral)", "—"
             ident = f"|λ(0)-1| {_fmt(s['goldstone_residual'], '.0e')}"
         else:
@@ -577,12 +582,16 @@ def _table(result) -> str:
         if not s["validated"]:
             notes.append(f"* {m.name}: not validated: {s['validation_reason']}")
         rows.append(f"{name:<10}{m.channel:<14}{mass:>12}{err:>10}"
-                    f"{s['decay_constant_gev']:>11.6f}{_fmt(s['decay_constant_error_gev'], '.1e'):>10}"
-                    f"{s['normalisation_agreement']:>9.1e}{ident:>17}"
-                    f"{_fmt(s['next_eigenvalue'], '.3f'):>8}")
+                    f"{_fmt(s['decay_constant_gev'], '.6f'):>11}{_fmt(s['decay_constant_error_gev'], '.1e'):>10}"
+                    f"{_fmt(s['normalisation_agreement'], '.1e'):>9}{ident:>17}"
+                    f"{_fmt(s['next_eigenvalue'], '.3f'):>8}{' '.join(s['flavours']):>8}{s['eta']:>7.3f}"
+                    f"{_fmt(s.get('eta_spread_gev'), '.1e'):>9}"
+                    f"{ {1: '+', -1: '-'}.get(s.get('c_parity'), '—'):>4}{_fmt(s.get('excitation'), 'd'):>3}")
     rows.append(f"decay constants in the {conv} MeV convention "
                 f"({'f_pi ~ 92 MeV' if conv == '92' else 'f_pi ~ 131 MeV, sqrt 2 larger'}); "
-                "± (grid): difference to a coarser grid")
+                "± (grid): difference to a coarser grid (extrapolated: spread of the continuations); "
+                "Δ_η M: the mass's change at a second momentum partition (— not computed); "
+                "C: the state's charge parity (— unequal flavours: not a symmetry); n: its excitation")
     return "\n".join(rows + notes)
 
 
