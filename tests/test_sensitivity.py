@@ -80,6 +80,17 @@ def test_pion_mass_and_decay_constant_derivatives_match_central_differences(cfg,
     assert abs(pion.jacobian[1, j] / fd[1] - 1) < 1e-5
 
 
+def test_failed_checks_fall_back_to_central_differences(cfg, pion, monkeypatch):
+    """A meson whose solver checks fail (here: every check, the tolerance set below 0) is
+    differentiated by central differences instead, labelled so, with the reason in its
+    diagnostics; those agree with the exact derivative ≤ 1e-5 (step 1e-3, as above)."""
+    monkeypatch.setattr(sensitivity, "CHECK_TOL", -1.0)
+    g = sensitivity.observables_with_gradient(cfg, [D], [("pion", "mass_gev")], warm=pion.state)
+    assert g.method == ("central-difference",)
+    assert "shifted_tangent_residual_max" in g.diagnostics["mesons"]["pion"]["exact_derivative_rejected"]
+    assert abs(g.jacobian[0, 0] / pion.jacobian[0, 0] - 1) < 1e-5
+
+
 @pytest.mark.slow
 def test_rho_mass_derivatives_match_central_differences(cfg, pion):
     """d m_ρ/dθ for θ = D, ω, m: exact vs central differences ≤ 1e-5 relative (and f_ρ)."""
