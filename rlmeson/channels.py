@@ -14,11 +14,12 @@ The projection of a Dirac matrix X onto the basis uses the trace pairing
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import lru_cache
 from typing import Callable
 
 import numpy as np
 
-from .dirac import GAMMA, GAMMA5, ONE, slash
+from .dirac import CHARGE_C, CHARGE_C_INV, GAMMA, GAMMA5, ONE, slash
 
 
 def _transverse(qh, ph):
@@ -52,6 +53,11 @@ def _vector(qh, ph):
     return np.concatenate([first, second], axis=-4)  # (..., 8, 4, 4, 4)
 
 
+def _axial_vector(qh, ph):
+    """γ₅ times the eight transverse vector covariants (the 1⁺ amplitudes, both C)."""
+    return GAMMA5 @ _vector(qh, ph)
+
+
 @dataclass(frozen=True)
 class Channel:
     name: str
@@ -81,6 +87,45 @@ class Channel:
         t = self.basis(qh, ph)
         rhs = np.einsum("...imab,...mba->...i", t, x)
         return np.linalg.solve(self.gram(qh, ph), rhs[..., None])[..., 0]
+
+    def charge_matrix(self, z) -> np.ndarray:
+        """M[k, j, i]: C τ_i(−q̂, P̂)ᵀ C⁻¹ = Σ_j M_ji τ_j(q̂, P̂) at the rest-frame q̂ of each
+        z node, derived from the explicit 4×4 matrices (``charge_conjugate``)."""
+        return _charge_matrix(self, tuple(np.asarray(z, dtype=float).tolist()))
+
+    def charge_conjugate(self, amp, z) -> np.ndarray:
+        """The coefficients of Γ_C(q; P) = C Γᵀ(−q; P) C⁻¹ for Γ coefficients ``amp`` of shape
+        (..., n_basis, n_z, n_q) on z nodes symmetric about 0: q → −q flips z (node k ↔
+        n_z − 1 − k) and maps each covariant by ``charge_matrix``.  For one flavour at η = 1/2
+        the ladder BSE commutes with this involution, so each eigenvector has C = ±1."""
+        z = np.asarray(z, dtype=float)
+        if not np.allclose(z[::-1], -z, rtol=0, atol=1e-13):
+            raise ValueError("charge conjugation needs z nodes symmetric about 0")
+        return np.einsum("kji,...ikq->...jkq", self.charge_matrix(z), np.asarray(amp)[..., ::-1, :])
+
+    def charge_parity(self, amp, z, weights=None) -> float:
+        """⟨Γ, Γ_C⟩/⟨Γ, Γ⟩ on the coefficient vector (±1 for a C eigenstate; the distance
+        from ±1 measures how well the state is one)."""
+        a = np.asarray(amp).reshape((-1, self.n_basis, len(z)) + np.asarray(amp).shape[-1:])[0]
+        c = self.charge_conjugate(a, z)
+        return float((np.vdot(a, c) / np.vdot(a, a)).real)
+
+
+@lru_cache(maxsize=32)
+def _charge_matrix(channel: "Channel", z: tuple) -> np.ndarray:
+    from .dirac import rest_frame_vectors
+
+    qh, ph = rest_frame_vectors(np.asarray(z))
+    tm = channel.basis(-qh, ph)  # τ_i(−q̂, P̂)
+    conj = CHARGE_C @ np.swapaxes(tm, -1, -2) @ CHARGE_C_INV
+    m = np.stack([channel.project(qh, ph, conj[:, i]) for i in range(channel.n_basis)], axis=-1)
+    back = m  # (k, j, i)
+    # an involution mapping the basis onto itself: M(z)² = 1, and the map is exact
+    rec = np.einsum("kji,kjmab->kimab", back, channel.basis(qh, ph))
+    if not (np.allclose(rec, conj, atol=1e-12) and
+            np.allclose(np.einsum("kij,kjl->kil", back, back), np.eye(channel.n_basis), atol=1e-12)):
+        raise ValueError(f"{channel.name}: the basis is not closed under charge conjugation")
+    return back.real if np.allclose(back.imag, 0.0, atol=1e-13) else back
 
 
 _REGISTRY: dict[str, Channel] = {}
@@ -116,6 +161,29 @@ VECTOR = register(Channel(
     decay_factor=lambda m: 1.0 / m,
     basis_labels=("γ_μ^T", "γ_μ^T γ·q_T", "γ_μ^T γ·P̂", "γ_μ^T γ·q_T γ·P̂",
                   "q_μ^T", "q_μ^T γ·q_T", "q_μ^T γ·P̂", "q_μ^T γ·q_T γ·P̂"),  # order of _vector
+))
+
+# The positive-parity channels.  Each basis holds both C: the opposite-C partners (0⁺⁻ in
+# the scalar basis, 1⁺⁻ and 1⁺⁺ in the axial-vector one) are eigenvectors of the same
+# operator, told apart by ``charge_parity``; a channel's ``c_parity`` names the one it
+# looks for.  No decay constant is defined for them here: for one flavour the scalar's
+# (∝ m₁ − m₂) and the 1⁺⁻'s (C-odd) vanish, and the 1⁺⁺'s is not reported (no projector
+# registered), so their amplitudes are phased by ``observables.normalise``'s fallback.
+SCALAR = register(Channel(
+    name="scalar", jpc="0++", c_parity=+1, covariants=_scalar_like, n_basis=4, n_index=1,
+    polarisations=1, basis_labels=("1", "γ·q_T", "γ·P̂", "γ·q_T γ·P̂"),
+))
+
+AXIAL_VECTOR = register(Channel(
+    name="axial-vector", jpc="1++", c_parity=+1, covariants=_axial_vector, n_basis=8, n_index=4,
+    polarisations=3,
+    basis_labels=tuple("γ5 " + label for label in VECTOR.basis_labels),
+))
+
+PSEUDOVECTOR = register(Channel(
+    name="pseudovector", jpc="1+-", c_parity=-1, covariants=_axial_vector, n_basis=8, n_index=4,
+    polarisations=3,
+    basis_labels=tuple("γ5 " + label for label in VECTOR.basis_labels),
 ))
 
 #: The Dirac structure of a quark propagator at complex momentum q + ηP (not a meson).

@@ -110,6 +110,9 @@ class MesonConfig:
     quarks: tuple[str, str]
     eta: float | None = None  # None: chosen from the quarks' singularities (pipeline.meson_eta)
     mass_guess_gev: float | None = None
+    #: which state of the channel's C-parity: 0 the ground state, n the n-th above it
+    #: (``search.find_excitation``); absent from the hashes when 0
+    excitation: int = 0
 
 
 # The numerical defaults are those of the solvers' grid dataclasses (one place).
@@ -177,7 +180,9 @@ class Config:
         return {**self._setup(),
                 "flavours": {f.name: f.current_mass_gev for f in self.flavours},
                 "mesons": {m.name: {"channel": m.channel, "quarks": list(m.quarks), "eta": m.eta,
-                                    "mass_guess_gev": m.mass_guess_gev} for m in self.mesons},
+                                    "mass_guess_gev": m.mass_guess_gev,
+                                    **({"excitation": m.excitation} if m.excitation else {})}
+                           for m in self.mesons},
                 "numerics": {"gap": dataclasses.asdict(self.gap), "bse": dataclasses.asdict(self.bse)}}
 
     def hash(self) -> str:
@@ -191,7 +196,8 @@ class Config:
     def meson_key(self, meson: MesonConfig) -> str:
         """Identifies one bound state: its quarks (by quark_key), channel, eta, BSE numerics."""
         return _hash({"quarks": [self.quark_key(q) for q in meson.quarks], "channel": meson.channel,
-                      "eta": meson.eta, "bse": dataclasses.asdict(self.bse)})
+                      "eta": meson.eta, "bse": dataclasses.asdict(self.bse),
+                      **({"excitation": meson.excitation} if meson.excitation else {})})
 
     def to_dict(self) -> dict:
         """The full resolved configuration in the nesting of the TOML file (None left out)."""
@@ -379,6 +385,8 @@ TOP_KEYS = ("name", "description", "interaction", "kernel", "renormalisation", "
 #: validated there, and no part of a run's physics or hash.
 WORKFLOW_KEYS = ("scan", "fit")
 MESON_KEYS = _fields(MesonConfig)
+#: The highest ``excitation`` a meson may ask for (each costs a followed state more).
+MAX_EXCITATION = 4
 
 
 def _interaction(t) -> InteractionConfig:
@@ -468,6 +476,7 @@ def _mesons(top: dict, flavours: tuple[FlavourConfig, ...]) -> tuple[MesonConfig
             # equal flavours default to 1/2; unequal ones are left to the pipeline
             eta=0.5 if eta is None and quarks[0] == quarks[1] else eta,
             mass_guess_gev=_take(m, p, "mass_guess_gev", None, _real, GUESS),
+            excitation=_take(m, p, "excitation", 0, _integer, 0, MAX_EXCITATION),
         ))
     return tuple(out)
 

@@ -71,8 +71,8 @@ class Normalised:
     norm_nakanishi: complex
     norm_canonical: complex
     eigenvalue_slope: float   # dλ/dP² (GeV⁻²)
-    decay_constant: float     # √2 convention
-    decay_constant_imag: float
+    decay_constant: float | None       # √2 convention; None: no decay constant for the channel
+    decay_constant_imag: float | None
     condensate: float | None  # ρ, √2 convention (GeV²)
     condensate_imag: float | None
     norm_phase: complex = 1.0  # λ′ L of the final Γ: +1 for a normalisable state, −1 a ghost
@@ -142,12 +142,18 @@ def normalise(bs, mass: float, amp: np.ndarray, lam_at: dict, method: str = "nak
         chi_m = bs.wave_function(gamma, m)
         return fz * N_C * ch.decay_factor(m) / ch.polarisations * projected_integral(bs, chi_m, ch.decay_projector)
 
-    f = decay(mass)
     chi = bs.wave_function(gamma, mass)
-    phase = abs(f) / f if f != 0 else 1.0
+    if ch.decay_projector is not None:
+        f = decay(mass)
+        phase = abs(f) / f if f != 0 else 1.0
+    else:
+        # no decay constant registered for the channel: Γ/√N² is kept (λ′L = 1 for it),
+        # its sign chosen so that the coefficient of largest modulus has Re > 0
+        big = gamma.reshape(-1)[int(np.argmax(np.abs(gamma)))]
+        f, phase = None, (1.0 if big.real >= 0 else -1.0)
     gamma = gamma * phase
     chi = chi * phase
-    f = f * phase
+    f = None if f is None else f * phase
     rho = rho_i = None
     if ch.condensate_projector is not None:
         # ρ is defined so that f M² = (m₁ + m₂) ρ: the AV-WTI carries Z₄₁m₁ + Z₄₂m₂, and
@@ -159,8 +165,9 @@ def normalise(bs, mass: float, amp: np.ndarray, lam_at: dict, method: str = "nak
         rho, rho_i = float(r.real), float(r.imag)
     return Normalised(mass_gev=float(mass), amplitude=gamma, wave_function=chi,
                       norm_nakanishi=complex(n_nak), norm_canonical=complex(n_can),
-                      eigenvalue_slope=float(slope), decay_constant=float(f.real),
-                      decay_constant_imag=float(f.imag), condensate=rho, condensate_imag=rho_i,
+                      eigenvalue_slope=float(slope), decay_constant=None if f is None else float(f.real),
+                      decay_constant_imag=None if f is None else float(f.imag), condensate=rho,
+                      condensate_imag=rho_i,
                       norm_phase=complex(phase * phase))
 
 

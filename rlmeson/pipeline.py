@@ -407,6 +407,12 @@ class BoundStateCore:
     #: |M(η₂) − M(η)| and η₂ (``eta_spread``), when computed
     eta_spread_gev: float | None = None
     eta_spread_second_eta: float | None = None
+    #: C = ±1 of each spectrum eigenvalue (same shape as spectrum[1]); 0 where charge
+    #: conjugation is not a symmetry (unequal flavours, η ≠ 1/2)
+    spectrum_c: np.ndarray | None = field(default=None, repr=False)
+    #: C of the state found, from its eigenvector (None where C is not a symmetry)
+    c_parity: int | None = None
+    excitation: int = 0
 
 
 def _singularity_distance(q: QuarkResult) -> float | None:
@@ -478,9 +484,12 @@ def bound_state(cfg: Config, meson: MesonConfig, quarks: dict[str, QuarkResult],
     q2sol = q2.solution if q2 is not q1 else None
     bs = bse.BoundState(kern, ch, grid, q1.solution, q2sol, eta=eta,
                         continuation=cfg.bse.continuation, max_mass=m_max)
-    chiral = q1.solution.chiral and q2.solution.chiral and ch.name == "pseudoscalar"
+    chiral = (q1.solution.chiral and q2.solution.chiral and ch.name == "pseudoscalar"
+              and not meson.excitation)
     goldstone = None
-    lead = search.Leading(bs)
+    # one flavour at η = 1/2: C is a symmetry and the search keeps to the channel's C
+    parity = ch.c_parity if search.charge_symmetric(bs) else None
+    lead = search.Leading(bs, parity)
     if chiral:
         goldstone = abs(lead(0.0) - 1.0)
         norms = [_normalise_at(bs, lead, m, lead.vec) for m in observables.CHIRAL_PROBES_GEV]
@@ -491,7 +500,14 @@ def bound_state(cfg: Config, meson: MesonConfig, quarks: dict[str, QuarkResult],
         check_mass_guess(cfg, meson, quarks)
         guess = meson.mass_guess_gev or _guess(ch.name, q1, q2, m_max)
         progress(f"{meson.name}: searching lambda(P^2) = 1 below M_max = {m_max:.4g} GeV")
-        sol = search.find_mass(bs, guess, m_max)
+        if meson.excitation:
+            progress(f"{meson.name}: following the leading {meson.excitation + 1 + EXCITATION_SPARE} states "
+                     f"from M = {EXCITATION_START_GEV:g} GeV for excitation {meson.excitation}")
+            sol = search.find_excitation(bs, meson.excitation, EXCITATION_START_GEV, m_max, parity=parity,
+                                         spare=EXCITATION_SPARE)
+            lead = search.Follower(bs, sol.eigenvector, meson.excitation + 1 + EXCITATION_SPARE, parity)
+        else:
+            sol = search.find_mass(bs, guess, m_max, parity=parity)
         mass, vec, evals = sol.mass_gev, sol.eigenvector, sol.evaluations
         nrm = _normalise_at(bs, lead, mass, vec)
         curve = _merge(sol.curve, lead.curve)
@@ -501,6 +517,10 @@ def bound_state(cfg: Config, meson: MesonConfig, quarks: dict[str, QuarkResult],
     nxt = float(vals[1].real) if len(vals) > 1 else None
     shifted = bs.shifted_residual
     spec = _spectrum(bs, mass, m_max, m_eval, vals, vecs) if spectrum else None
+    spec_c = None
+    if spec is not None:
+        spec, spec_c = spec[:2], spec[2]
+    state_c = int(search.c_labels(bs, np.asarray(nrm.amplitude).reshape(-1, 1))[0]) if parity is not None else None
     space = _spacelike(bs) if spectrum else None
     spread = second = None
     if eta_spread and not chiral:
@@ -519,8 +539,15 @@ def bound_state(cfg: Config, meson: MesonConfig, quarks: dict[str, QuarkResult],
     return BoundStateCore(mass_gev=mass, chiral=chiral, normalised=nrm, next_eigenvalue=nxt,
                           goldstone_residual=goldstone, curve=curve, evaluations=evals,
                           q2=bs.q2, z=bs.z, shifted_residual=shifted, spectrum=spec, spacelike=space,
-                          eta_spread_gev=spread, eta_spread_second_eta=second)
+                          eta_spread_gev=spread, eta_spread_second_eta=second, spectrum_c=spec_c,
+                          c_parity=state_c, excitation=int(meson.excitation))
 
+
+#: An excited state (``excitation`` > 0) is found by following this many states more
+#: than its own number by eigenvector overlap (``search.find_excitation``) from
+#: EXCITATION_START_GEV upwards.
+EXCITATION_SPARE = 2
+EXCITATION_START_GEV = 0.02
 
 #: The second momentum partition of the η spread lies this far from the meson's η (on the
 #: side that leaves the larger M_max), and the mass must stay below ETA_SPREAD_ROOM of it.
@@ -561,9 +588,9 @@ SPECTRUM_TOL = 1e-7
 SPECTRUM_CHIRAL_GEV = (0.0, 0.1, 0.2, 0.3)
 
 
-def _spectrum(bs, mass: float, m_max: float, m_eval: float, vals, vecs) -> tuple[np.ndarray, np.ndarray]:
+def _spectrum(bs, mass: float, m_max: float, m_eval: float, vals, vecs) -> tuple[np.ndarray, ...]:
     """λ_1..λ_k at a handful of masses from P² = 0 to past the crossing (the figure's
-    data).  Points are solved outwards from the bound state, each starting from the sum of
+    data), with the C-parity of each (``search.c_labels``: 0 where C is no symmetry).  Points are solved outwards from the bound state, each starting from the sum of
     the k eigenvectors of the nearest point already solved; a point where a solve fails
     or that lies beyond M_max is left out (the curve is a picture, not a result)."""
     from scipy.sparse.linalg import ArpackNoConvergence
@@ -574,6 +601,7 @@ def _spectrum(bs, mass: float, m_max: float, m_eval: float, vals, vecs) -> tuple
                tuple(f * mass for f in SPECTRUM_FRACTIONS) + (mass + max(0.2 * mass, SPECTRUM_BEYOND_GEV),))
     points = {float(m_eval): np.asarray(vals[:SPECTRUM_K], dtype=complex)}
     start = {float(m_eval): np.asarray(vecs).sum(axis=1)}
+    labels = {float(m_eval): search.c_labels(bs, np.asarray(vecs)[:, :SPECTRUM_K])}
     for m in sorted(targets, key=lambda x: abs(x - m_eval)):
         if m >= 0.98 * m_max or m in points:
             continue
@@ -585,8 +613,9 @@ def _spectrum(bs, mass: float, m_max: float, m_eval: float, vals, vecs) -> tuple
         if len(v) == SPECTRUM_K and np.all(np.isfinite(v)):
             points[float(m)] = np.asarray(v, dtype=complex)
             start[float(m)] = np.asarray(w).sum(axis=1)
+            labels[float(m)] = search.c_labels(bs, w)
     ms = np.array(sorted(points))
-    return ms, np.stack([points[m] for m in ms])
+    return ms, np.stack([points[m] for m in ms]), np.stack([labels[m] for m in ms])
 
 
 #: Spacelike points of the λ(P²) figure, P² in GeV².
@@ -670,9 +699,36 @@ class MesonResult:
                        f"{ETA_SPREAD_TOLERANCE:g}")
         return not why, why
 
+    def c_parity_summary(self) -> dict:
+        """The state's charge parity (from its eigenvector), which excitation of its channel
+        it is, and the leading eigenvalues at its mass each with its C."""
+        c = self.core
+        ch = channels.get(self.channel)
+        out = {"excitation": c.excitation,
+               "excitation_method": ("the leading state of the channel's C crossing lambda = 1" if not c.excitation
+                                     else "the n-th state of the channel's C to cross lambda = 1 as M rises, each "
+                                          "state followed across P^2 by eigenvector overlap (n = excitation)"),
+               "c_parity": c.c_parity}
+        if c.c_parity is None:
+            out["c_parity_method"] = ("none: charge conjugation is a symmetry only for one flavour at eta = 1/2"
+                                      if self.quarks[0] != self.quarks[1] or self.eta != 0.5 else
+                                      "not stored with this result")
+        else:
+            out["c_parity_method"] = ("<Gamma, Gamma_C>/<Gamma, Gamma> of the amplitude, Gamma_C(q;P) = C Gamma^T(-q;P) "
+                                      f"C^-1, C = gamma_2 gamma_4; the search keeps to C = {ch.c_parity:+d} "
+                                      f"(J^PC = {ch.jpc})")
+        if c.spectrum is not None and c.spectrum_c is not None:
+            ms, lam = c.spectrum
+            i = int(np.argmin(np.abs(ms - (c.mass_gev if c.mass_gev > 0 else ms[0]))))
+            out["eigenvalues_at_mass"] = [
+                {"lambda": float(l.real), "c_parity": int(k) if k else None}
+                for l, k in zip(lam[i], c.spectrum_c[i])]
+            out["eigenvalues_at_mass_gev"] = float(ms[i])
+        return out
+
     def summary(self) -> dict:
         c, n = self.core, self.core.normalised
-        f = n.decay_constant * self.factor
+        f = None if n.decay_constant is None else n.decay_constant * self.factor
         ok, why = self.route_check()
         out = {
             "name": self.name,
@@ -710,6 +766,7 @@ class MesonResult:
             "normalisation_agreement": n.normalisation_agreement,
             "norm_sign": int(round(float(np.real(n.norm_phase)))),
             "next_eigenvalue": c.next_eigenvalue,
+            **self.c_parity_summary(),
             "bse_evaluations": c.evaluations,
             "seconds": self.seconds,
             "from_cache": self.from_cache,
@@ -722,7 +779,9 @@ class MesonResult:
         if self.coarse is not None:
             if not c.chiral:
                 out["mass_error_gev"] = abs(c.mass_gev - self.coarse.mass_gev)
-            out["decay_constant_error_gev"] = abs(n.decay_constant - self.coarse.normalised.decay_constant) * self.factor
+            if n.decay_constant is not None and self.coarse.normalised.decay_constant is not None:
+                out["decay_constant_error_gev"] = (abs(n.decay_constant - self.coarse.normalised.decay_constant)
+                                                   * self.factor)
             out["error_estimate"] = "difference to a second, coarser grid"
         if n.condensate is not None:
             rho = n.condensate * self.factor
@@ -749,6 +808,8 @@ def _core_to_store(prefix: str, c: BoundStateCore, arrays: dict, attrs: dict) ->
     arrays[f"{prefix}curve"] = np.stack([ms, ls])
     if c.spectrum is not None:
         arrays[f"{prefix}spectrum_mass"], arrays[f"{prefix}spectrum"] = c.spectrum
+    if c.spectrum_c is not None:
+        arrays[f"{prefix}spectrum_c"] = np.asarray(c.spectrum_c, dtype=np.int8)
     if c.spacelike is not None:
         arrays[f"{prefix}spacelike_p2"], arrays[f"{prefix}spacelike"] = c.spacelike
     attrs[f"{prefix}core"] = {
@@ -761,7 +822,8 @@ def _core_to_store(prefix: str, c: BoundStateCore, arrays: dict, attrs: dict) ->
         "eigenvalue_slope": n.eigenvalue_slope, "decay_constant": n.decay_constant,
         "decay_constant_imag": n.decay_constant_imag, "condensate": n.condensate,
         "condensate_imag": n.condensate_imag,
-        "eta_spread_gev": c.eta_spread_gev, "eta_spread_second_eta": c.eta_spread_second_eta}
+        "eta_spread_gev": c.eta_spread_gev, "eta_spread_second_eta": c.eta_spread_second_eta,
+        "c_parity": c.c_parity, "excitation": c.excitation}
 
 
 def _core_from_store(prefix: str, arrays: dict, attrs: dict) -> BoundStateCore:
@@ -786,7 +848,10 @@ def _core_from_store(prefix: str, arrays: dict, attrs: dict) -> BoundStateCore:
                           next_eigenvalue=a["next_eigenvalue"], goldstone_residual=a["goldstone_residual"],
                           curve=curve, evaluations=a["evaluations"], q2=arrays[f"{prefix}q2"],
                           z=arrays[f"{prefix}z"], shifted_residual=a["shifted_residual"], spectrum=spec, spacelike=space,
-                          eta_spread_gev=a.get("eta_spread_gev"), eta_spread_second_eta=a.get("eta_spread_second_eta"))
+                          eta_spread_gev=a.get("eta_spread_gev"), eta_spread_second_eta=a.get("eta_spread_second_eta"),
+                          spectrum_c=(np.asarray(arrays[f"{prefix}spectrum_c"], dtype=int)
+                                      if f"{prefix}spectrum_c" in arrays else None),
+                          c_parity=a.get("c_parity"), excitation=int(a.get("excitation") or 0))
 
 
 def solve_meson(cfg: Config, meson: MesonConfig, quarks: dict[str, QuarkResult],
@@ -829,7 +894,7 @@ def _solve_meson(cfg: Config, meson: MesonConfig, quarks: dict[str, QuarkResult]
     if cfg.output.error_bar:
         progress(f"{meson.name}: second, coarser grid for the error estimate")
         coarse = bound_state(cfg, MesonConfig(meson.name, meson.channel, meson.quarks, meson.eta,
-                                              core.mass_gev or meson.mass_guess_gev),
+                                              core.mass_gev or meson.mass_guess_gev, meson.excitation),
                              quarks, grid.coarser())
     res = MesonResult(core=core, coarse=coarse, seconds=time.perf_counter() - t0, **common)
     if store is not None:
