@@ -82,23 +82,29 @@ class Extrapolation:
         }
 
 
+def plain_eigen(bs, mass, k, v0, tol):
+    """The leading k eigenpairs of ``bs`` at mass (complex: spacelike), all charge parities."""
+    return bs.eigen(mass, k=k, v0=v0, tol=tol)
+
+
 def sample(bs, limit_gev: float, spacelike=SPACELIKE_GEV2, fractions=TIMELIKE_FRACTIONS,
-           tol: float = 1e-10) -> tuple[np.ndarray, np.ndarray]:
+           tol: float = 1e-10, eigen=plain_eigen) -> tuple[np.ndarray, np.ndarray]:
     """(P², λ) of the leading eigenvalue of ``bs`` at the spacelike P² given (its
     ``spacelike_twin``) and at the masses ``fractions`` × ``limit_gev`` (shifted), each
-    solve warm-started from the previous eigenvector."""
+    solve warm-started from the previous eigenvector.  ``eigen(bs, mass, k, v0, tol)``:
+    the eigen-solver (e.g. one restricted to a charge parity)."""
     p2, lam = [], []
     twin = bs.spacelike_twin()
     v0 = None
     for x in sorted(spacelike, reverse=True):
-        vals, vecs = twin.eigen(1j * float(np.sqrt(x)), k=1, v0=v0, tol=tol)
+        vals, vecs = eigen(twin, 1j * float(np.sqrt(x)), 1, v0, tol)
         p2.append(float(x))
         lam.append(float(vals[0].real))
         v0 = vecs[:, 0]
     v0 = None
     for f in sorted(fractions):
         m = f * limit_gev
-        vals, vecs = bs.eigen(m, k=1, v0=v0, tol=tol)
+        vals, vecs = eigen(bs, m, 1, v0, tol)
         p2.append(-m * m if m else 0.0)
         lam.append(float(vals[0].real))
         v0 = vecs[:, 0]

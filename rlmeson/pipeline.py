@@ -1003,6 +1003,7 @@ class ExtrapolatedMeson:
     seconds: float
     convention: str = "92"
     from_cache: bool = False
+    c_parity: int | None = None    # the charge parity the samples were restricted to
 
     @property
     def mass_gev(self) -> float:
@@ -1028,6 +1029,8 @@ class ExtrapolatedMeson:
                                   "continuation of lambda(P^2): no amplitude, decay constant or identity check"),
             "extrapolated": True,
             "extrapolation_reason": self.reason,
+            "excitation": 0,
+            "c_parity": self.c_parity,
             "max_bound_state_mass_gev": self.limit_gev,
             "mass_gev": e.mass_gev,
             "mass_method": "lambda(P^2 = -M^2) = 1 of rational continuations of lambda(P^2) (see extrapolation)",
@@ -1051,23 +1054,34 @@ def extrapolate_meson(cfg: Config, meson: MesonConfig, quarks: dict[str, QuarkRe
     accessible states) by rational continuation of its leading λ(P²), sampled spacelike
     and timelike below the limit.  ``extrapolate.NotExtrapolable`` says why not."""
     t0 = time.perf_counter()
+    if getattr(meson, "excitation", 0):
+        raise extrapolate.NotExtrapolable("only ground states are extrapolated (the leading eigenvalue), "
+                                          f"not excitation {meson.excitation}")
     q1, q2 = quarks[meson.quarks[0]], quarks[meson.quarks[1]]
     eta, eta_method = meson_eta(meson, q1, q2)
     limit = mass_limit(q1, q2, eta) if limit_gev is None else float(limit_gev)
     if not math.isfinite(limit):
         raise extrapolate.NotExtrapolable("M_max is not finite: the state is accessible")
-    bs = bse.BoundState(kernel_of(cfg), channels.get(meson.channel), bse_grid_of(cfg), q1.solution,
+    ch = channels.get(meson.channel)
+    bs = bse.BoundState(kernel_of(cfg), ch, bse_grid_of(cfg), q1.solution,
                         q2.solution if q2 is not q1 else None, eta=eta,
                         continuation=cfg.bse.continuation, max_mass=limit)
+    # the leading state of the channel's charge parity where C is a symmetry (as the
+    # search does), read with getattr while the C-parity search is being merged
+    symmetric, restricted = getattr(search, "charge_symmetric", None), getattr(search, "eigen", None)
+    parity = getattr(ch, "c_parity", None) if symmetric is not None and symmetric(bs) else None
+    solver = (extrapolate.plain_eigen if parity is None or restricted is None else
+              (lambda b, m, k, v0, tol: restricted(b, m, k=k, v0=v0, tol=tol, parity=parity)))
     progress(f"{meson.name}: sampling lambda(P^2) below M_max = {limit:.4g} GeV to extrapolate past it")
-    p2, lam = extrapolate.sample(bs, limit)
+    p2, lam = extrapolate.sample(bs, limit, eigen=solver)
     ex = extrapolate.extrapolate(p2, lam)
     progress(f"{meson.name}: extrapolated M = {ex.mass_gev:.4f} ± {ex.error_gev:.1g} GeV")
     return ExtrapolatedMeson(name=meson.name, channel=meson.channel, quarks=meson.quarks,
                              current_masses_gev=(q1.solution.mass_gev, q2.solution.mass_gev),
                              continuation=cfg.bse.continuation, eta=eta, eta_method=eta_method, limit_gev=limit,
                              extrapolation=ex, reason=reason, seconds=time.perf_counter() - t0,
-                             convention=cfg.output.decay_constant_convention)
+                             convention=cfg.output.decay_constant_convention,
+                             c_parity=parity if solver is not extrapolate.plain_eigen else None)
 
 
 # ----------------------------------------------------------------------------------------
