@@ -55,7 +55,8 @@ def main() -> None:
                      f"{r['evaluations']} / {r['iterations']}", f"{r['D']:.5f}", f"{1e3 * r['m']:.4f}",
                      "yes" if r["converged"] else "NO", f"{r['peak_mb']:.0f}"))
     print(table(f"fit workflow ({a.derivatives or 'default'} derivatives; fresh process, empty result store)",
-                rows, ("row", "wall s", "cpu s", "target s", "evals / iters", "D GeV^2", "m MeV", "converged", "peak MB")))
+                rows, ("row", "wall s", "cpu s", "target s", "evals / iters", "D GeV^2", "m MeV", "converged",
+                       "peak MB")))
 
 
 if __name__ == "__main__":

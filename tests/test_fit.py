@@ -317,8 +317,6 @@ def test_linked_parameter_jacobian_is_the_derivative_along_the_family():
     """The chain rule for ω with D = (ωD)/ω: the fit's Jacobian column equals the central
     difference of the observables along the family (d ln m_π/d ln ω = 0.028 there: the
     family keeps the pion nearly fixed, its purpose)."""
-    import numpy as np
-
     from rlmeson import fit
 
     d = tomllib.loads(SMALL + FIT.replace('key = "interaction.strength_gev2"\nbounds = [0.5, 1.5]',
