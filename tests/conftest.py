@@ -6,6 +6,10 @@ from __future__ import annotations
 
 import os
 
+# one BLAS thread, as the CLI sets (rlmeson/cli.py): BLAS threads fight JAX's thread pool
+# for the two cores and slowed ARPACK up to 30× on a loaded machine
+for _var in ("OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
+    os.environ.setdefault(_var, "1")
 os.environ.setdefault("RLMESON_CACHE", os.path.join(os.path.dirname(__file__), "..", ".cache", "test-store"))
 
 import numpy as np  # noqa: E402
