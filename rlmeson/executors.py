@@ -47,27 +47,50 @@ def threads_per_worker(workers: int, cores: int | None = None) -> int:
 
 
 def worker_environment(threads: int, base: dict | None = None) -> dict[str, str]:
-    """The environment variables that limit a fresh process to ``threads`` threads:
-    XLA's CPU backend (``XLA_FLAGS``: one thread switches its Eigen thread pool off,
-    otherwise sets its size; the user's other XLA flags are kept) and the BLAS/OpenMP
-    libraries."""
+    """The environment variables that limit a fresh process to ``threads`` threads: the
+    BLAS/OpenMP libraries, and for one thread XLA's CPU backend (``XLA_FLAGS``: its Eigen
+    thread pool switched off; the user's other XLA flags are kept).  XLA has no flag for
+    a pool of a given size: with more than one thread it sizes its pool by the cores the
+    process may run on, which :class:`LocalProcesses` narrows to ``threads`` cores per
+    worker (``_init_worker``)."""
     base = os.environ if base is None else base
     flags = [f for f in base.get("XLA_FLAGS", "").split()
              if not f.startswith(("--xla_cpu_multi_thread_eigen", "intra_op_parallelism_threads",
                                   "--intra_op_parallelism_threads"))]
     if threads == 1:
-        flags += ["--xla_cpu_multi_thread_eigen=false", "intra_op_parallelism_threads=1"]
-    else:
-        flags += [f"intra_op_parallelism_threads={threads}"]
-    env = {"XLA_FLAGS": " ".join(flags)}
+        flags = ["--xla_cpu_multi_thread_eigen=false", *flags, "intra_op_parallelism_threads=1"]
+    env = {"XLA_FLAGS": " ".join(flags)} if flags else {}
     env.update({v: str(threads) for v in _THREAD_VARS})
     return env
 
 
-def _init_worker(env: dict[str, str], parent: int | None) -> None:
-    """First thing a worker process runs: thread settings before JAX is imported, and a
-    watch on the parent so that a worker never outlives a killed scan."""
+def _pin(threads: int, slot: int) -> None:
+    """Run this process on ``threads`` of the available cores, the ``slot``-th group
+    (Linux; elsewhere nothing happens)."""
+    try:
+        cores = sorted(os.sched_getaffinity(0))
+    except (AttributeError, OSError):
+        return
+    if threads >= len(cores):
+        return
+    start = (slot * threads) % len(cores)
+    group = (cores + cores)[start:start + threads]
+    try:
+        os.sched_setaffinity(0, set(group))
+    except OSError:
+        pass
+
+
+def _init_worker(env: dict[str, str], parent: int | None, threads: int = 1, counter=None) -> None:
+    """First thing a worker process runs: thread settings before JAX is imported (with
+    more than one thread, the worker is narrowed to its own group of cores), and a watch
+    on the parent so that a worker never outlives a killed scan."""
     os.environ.update(env)
+    if threads > 1 and counter is not None:
+        with counter.get_lock():
+            slot = counter.value
+            counter.value += 1
+        _pin(threads, slot)
     if parent is not None:
         def watch():
             import time
@@ -130,8 +153,9 @@ class LocalProcesses(Executor):
             import multiprocessing as mp
             from concurrent.futures import ProcessPoolExecutor
 
-            self._pool = ProcessPoolExecutor(max_workers=self.workers, mp_context=mp.get_context("spawn"),
-                                             initializer=_init_worker, initargs=(self.env, os.getpid()))
+            ctx = mp.get_context("spawn")
+            self._pool = ProcessPoolExecutor(max_workers=self.workers, mp_context=ctx, initializer=_init_worker,
+                                             initargs=(self.env, os.getpid(), self.threads, ctx.Value("i", 0)))
         return self._pool
 
     def map(self, fn, args, on_result=None):

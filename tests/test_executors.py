@@ -26,7 +26,9 @@ def test_sizing_keeps_workers_times_threads_within_the_cores():
     assert "--xla_cpu_multi_thread_eigen=false" in flags and "intra_op_parallelism_threads=1" in flags
     assert "intra_op_parallelism_threads=7" not in flags
     assert env["OMP_NUM_THREADS"] == "1"
-    assert "intra_op_parallelism_threads=4" in executors.worker_environment(4, {})["XLA_FLAGS"]
+    many = executors.worker_environment(4, {"XLA_FLAGS": "--xla_dump_to=/tmp/x"})
+    assert many["XLA_FLAGS"] == "--xla_dump_to=/tmp/x" and many["OMP_NUM_THREADS"] == "4"
+    assert "XLA_FLAGS" not in executors.worker_environment(4, {})   # XLA reads a flag without -- as a file
 
 
 def test_in_process_keeps_order_and_reports_each_result():
@@ -65,6 +67,37 @@ def test_dask_local_cluster_keeps_order_and_thread_settings():
     with executors.Dask("local", workers=1, threads=1) as ex:
         assert ex.map(math.sqrt, [1.0, 4.0, 9.0]) == [1.0, 2.0, 3.0]
         assert "--xla_cpu_multi_thread_eigen=false" in ex.map(os.getenv, ["XLA_FLAGS"])[0]
+
+
+def test_workers_with_several_threads_run_jax():
+    """Workers with more than one thread each: XLA starts (its flags parse) and each
+    worker is narrowed to its own group of cores (on a machine with ≥ 2 cores)."""
+    cores = executors.available_cores()
+    with executors.LocalProcesses(workers=1, threads=cores) as ex:
+        assert ex.map(_jax_sum, [3])[0] == 6.0
+    if cores >= 2 and hasattr(os, "sched_getaffinity"):
+        with executors.LocalProcesses(workers=1, threads=1) as ex:
+            assert ex.map(_ncores, [0])[0] == cores          # one thread: no pinning needed
+            groups = ex.map(_pinned, [(cores - 1, 0), (cores - 1, 1)])   # (threads, slot), in a worker
+        assert all(len(g) == cores - 1 for g in groups) and groups[0] != groups[1]
+
+
+def _jax_sum(n):
+    from rlmeson._jax import jnp
+
+    return float(jnp.arange(n + 1.0).sum())
+
+
+def _ncores(_):
+    return len(os.sched_getaffinity(0))
+
+
+def _pinned(args):
+    before = os.sched_getaffinity(0)
+    executors._pin(*args)
+    group = sorted(os.sched_getaffinity(0))
+    os.sched_setaffinity(0, before)
+    return group
 
 
 def test_progress_bar_modes():
