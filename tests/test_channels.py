@@ -73,23 +73,25 @@ def test_c_labels_agree_with_explicit_charge_conjugation(states, name):
 
 
 def test_search_keeps_to_the_channels_c_and_orders_the_ground_states(states, mt_hard, light_hard):
-    """m_π < m_ρ < m_a₁ (common practice); the search with the channel's C finds a state of
-    that C even where the opposite-C state leads (the 1⁺⁻ leads the axial-vector basis at
+    """m_π < m_ρ < m_a₁ and m_π < m_σ (common practice); the search with the channel's C
+    finds a state of that C even where the opposite-C state leads (the 1⁺⁻ leads the axial-vector basis at
     low P² here), and the pseudovector channel finds the 1⁺⁻ in the same basis."""
     masses = {}
-    for name, guess in (("pseudoscalar", 0.14), ("vector", 0.72), ("axial-vector", 0.9)):
+    for name, guess in (("pseudoscalar", 0.14), ("vector", 0.72), ("scalar", 0.65), ("axial-vector", 0.9)):
         bs = states[name]
         sol = search.find_mass(bs, guess, M_MAX, parity=bs.channel.c_parity)
         assert search.c_labels(bs, sol.eigenvector[:, None])[0] == bs.channel.c_parity
         masses[name] = sol.mass_gev
     assert masses["pseudoscalar"] < masses["vector"] < masses["axial-vector"] < M_MAX
+    # the 0⁺⁺ lies above the π but, in rainbow-ladder, below the ρ (too light against
+    # f₀/a₀(980): a known defect of the truncation, common practice; measured 0.655 vs ρ 0.725)
+    assert masses["pseudoscalar"] + 0.3 < masses["scalar"] < masses["vector"]
     pv = bse.BoundState(mt_hard, channels.get("pseudovector"), SMALL, light_hard, max_mass=M_MAX)
     b1 = search.find_mass(pv, 0.85, M_MAX, parity=pv.channel.c_parity)
     assert search.c_labels(pv, b1.eigenvector[:, None])[0] == -1
     assert abs(b1.mass_gev - masses["axial-vector"]) > 1e-3      # a different state
 
 
-@pytest.mark.slow
 def test_overlap_tracking_follows_states_through_a_crossing(states):
     """Tracking all states (no C filter) across P²: C is conserved along a state, so a
     follower that jumped between states would change its label.  Between M = 0.7 and 1.0
@@ -106,7 +108,6 @@ def test_overlap_tracking_follows_states_through_a_crossing(states):
     assert first != last
 
 
-@pytest.mark.slow
 def test_vector_excitation_lies_above_the_ground_state(states):
     """The first excitation of the ρ (C = −1), followed by overlap, crosses λ = 1 above
     the ρ and below M_max; excitation 0 of the follower is the ground state found by the
@@ -120,7 +121,6 @@ def test_vector_excitation_lies_above_the_ground_state(states):
     assert abs(ground.mass_gev / rho.mass_gev - 1) < 1e-8
 
 
-@pytest.mark.slow
 def test_pion_excitation_is_beyond_m_max_and_not_the_c_odd_state(states):
     """The first radial excitation of the π (0⁻⁺) lies above M_max of the light quark (its
     λ stays below 1 there, so its mass exceeds M_max > m_π); without the C filter the
@@ -174,3 +174,41 @@ def test_excitation_key_is_checked(bad):
     plain = config.parse(text.replace(f"excitation = {bad}\n", ""))
     assert plain.mesons[0].excitation == 0
     assert ok.meson_key(ok.mesons[0]) != plain.meson_key(plain.mesons[0])   # a different state, cached apart
+
+
+@pytest.mark.slow
+def test_pipeline_excited_vector_and_unreachable_pion_excitation():
+    """Through the meson stage: `excitation = 1` of the vector is a C = −1 state above the
+    ρ (its amplitude normalised by both methods alike), and the π's first excitation,
+    above M_max of the light quark, is reported as not reached, not as another state."""
+    from rlmeson import config, pipeline
+
+    cfg = config.parse("""
+name = "excited"
+[kernel]
+regularisation = "hard-cutoff"
+cutoff_gev2 = 1.0e5
+[quarks.l]
+current_mass_gev = 0.00374
+[[mesons]]
+name = "rho1"
+channel = "vector"
+excitation = 1
+[[mesons]]
+name = "pi1"
+channel = "pseudoscalar"
+excitation = 1
+[numerics.bse]
+order = 6
+z_points = 4
+panel_widths = [8.0, 3.0, 6.0, 6.0]
+[output]
+error_bar = false
+""")
+    quarks = {"l": pipeline.solve_quark(cfg, "l")}
+    s = pipeline.solve_meson(cfg, cfg.mesons[0], quarks).summary()
+    assert s["excitation"] == 1 and s["c_parity"] == -1
+    assert 0.85 < s["mass_gev"] < quarks["l"].search_limit_gev          # ρ is 0.725 GeV here; measured 0.988
+    assert s["normalisation_agreement"] < 1e-3                           # measured 4.9e-4
+    with pytest.raises(search.NoBoundState, match="excitation 1 .* not reached below M_max"):
+        pipeline.solve_meson(cfg, cfg.mesons[1], quarks)
