@@ -1,10 +1,12 @@
 """Timings and convergence of the meson stage (prints tables; no assertions).
 
     python benchmarks/bench_meson.py [--regularisation hard-cutoff|translation-invariant]
+    python benchmarks/bench_meson.py --strange     # the kaon rows only
 
 Targets (2-core machine): pion mass + f_π converged to 1e-4 relative ≤ 2 s after JIT
 warm-up and ≤ 10 s cold; ρ ≤ 5 s after warm-up; peak memory ≤ 2 GB; the measured
-exponent of kernel-build time against the number of grid points (expect ≈ 2).
+exponent of kernel-build time against the number of grid points (expect ≈ 2); kaon
+(configs/mt-strange*.toml) mass + f_K ≤ 3 s warm, its η spread ≤ 2× that.
 """
 
 from __future__ import annotations
@@ -64,10 +66,55 @@ def _meson(cfg, quarks, which, grid):
     return core, time.perf_counter() - t0
 
 
+def kaon_rows(config_name: str) -> list[tuple]:
+    """The kaon of a shipped strange-sector config (its m_s fitted to m_K): mass + f_K
+    warm (JIT compiled, kernel built, then reused), and the η spread's extra cost (the
+    mass found again at a second momentum partition).  Target: ≤ 3 s; spread ≤ 2×."""
+    from pathlib import Path
+
+    from rlmeson import config, ladder, pipeline
+
+    cfg = config.load(Path(__file__).resolve().parents[1] / "configs" / f"{config_name}.toml")
+    quarks = {f.name: pipeline.solve_quark(cfg, f.name) for f in cfg.flavours}
+    kaon = next(m for m in cfg.mesons if m.name == "kaon")
+    grid = pipeline.bse_grid_of(cfg)
+
+    def once(spread):
+        t0 = time.perf_counter()
+        core = pipeline.bound_state(cfg, kaon, quarks, grid, eta_spread=spread)
+        return core, time.perf_counter() - t0
+
+    once(True)                                               # JIT warm-up
+    ladder._MOMENT_CACHE.clear()
+    core, t_build = once(False)
+    core, t_kaon = once(False)
+    core2, t_both = once(True)
+    f = core.normalised.decay_constant / math.sqrt(2)
+    return [(config_name, f"{core.mass_gev:.7f}", f"{f:.7f}", f"{t_build:.2f}", f"{t_kaon:.2f}",
+             f"{t_both - t_kaon:.2f}", f"{(t_both - t_kaon) / t_kaon:.2f}",
+             f"{core2.eta_spread_gev / core2.mass_gev:.1e}")]
+
+
 def main():
     ap = argparse.ArgumentParser()
     ap.add_argument("--regularisation", default="translation-invariant")
-    reg = ap.parse_args().regularisation
+    ap.add_argument("--strange", action="store_true", help="only the kaon rows (mt-strange, mt-strange-ti)")
+    args = ap.parse_args()
+    reg = args.regularisation
+    if args.strange:
+        # one BLAS thread, as `rlmeson run` sets it: ARPACK's orthogonalisation with threaded
+        # BLAS competing with JAX's pool ran 5x slower on two busy cores (measured: kaon 5.9 s
+        # against 1.2 s warm)
+        for var in ("OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
+            os.environ.setdefault(var, "1")
+        import rlmeson  # noqa: F401
+
+        rows = kaon_rows("mt-strange") + kaon_rows("mt-strange-ti")
+        print(table("kaon, default grid (seconds; f in the 92 MeV convention)", rows,
+                    ("config", "M_K [GeV]", "f_K [GeV]", "warm incl. kernel build", "warm, kernel reused",
+                     "eta spread extra", "spread / kaon", "relative spread")))
+        print(f"\npeak memory of this process: {peak_rss_mb():.0f} MB")
+        return
 
     import rlmeson  # noqa: F401
     from rlmeson import bse, config, ladder, pipeline
