@@ -105,7 +105,8 @@ DIMENSIONLESS = {"Z2", "Zm", "Z4", "residual", "iterations", "normalisation_agre
                  "next_eigenvalue", "awti_residual", "goldstone_residual", "singularity_shifted_check", "eta",
                  "bse_evaluations", "grid_points", "max_bound_state_mass_eta",
                  "singularity_approximant_holdout_error",    # a relative error
-                 "eta_spread_second_eta"}                    # a momentum fraction
+                 "eta_spread_second_eta",                    # a momentum fraction
+                 "excitation", "c_parity"}                   # quantum numbers (integers)
 UNIT = re.compile(r".*_(gev|gev2|gev-1|gev-2|gev-3)$")
 
 
