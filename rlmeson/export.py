@@ -146,6 +146,10 @@ def _write_meson(g, m, ms, kern, config_hash, version) -> None:
         _dataset(g, "spectrum_re", sl.real, "1", ("point", "eigenvalue"),
                  "real part of the leading eigenvalues lambda_1 >= lambda_2 >= lambda_3 at P^2")
         _dataset(g, "spectrum_im", sl.imag, "1", ("point", "eigenvalue"), "imaginary part of the same")
+        if core.spectrum_c is not None:
+            _dataset(g, "spectrum_c", np.asarray(core.spectrum_c, dtype=np.int8), "1", ("point", "eigenvalue"),
+                     "charge parity C = +1/-1 of each of these eigenvalues (0: C is no symmetry, as for "
+                     "unequal flavours or eta != 1/2)")
     if core.spacelike is not None:
         sp, sv = core.spacelike
         _dataset(g, "spacelike_p2", sp, "GeV^2", ("spacelike_point",), "spacelike P^2 > 0 of the spectrum points")

@@ -159,6 +159,14 @@ def test_run_summary_reports_c_parity_and_labelled_eigenvalues(figure_run):
     for name in ("pi", "rho"):
         lam = [(e["lambda"], e["c_parity"]) for e in by[name]["eigenvalues_at_mass"]]
         assert any(abs(v - 1) < 1e-6 and k == by[name]["c_parity"] for v, k in lam)
+    import h5py
+
+    with h5py.File(figure_run[0] / "results.h5", "r") as f:
+        g = f["mesons/rho"]
+        c, ms = g["spectrum_c"][()], g["spectrum_mass"][()]
+        assert c.shape == g["spectrum_re"].shape and set(np.unique(c)) <= {1, -1}
+        at = int(np.argmin(abs(ms - by["rho"]["eigenvalues_at_mass_gev"])))
+        assert list(c[at]) == [e["c_parity"] for e in by["rho"]["eigenvalues_at_mass"]]
 
 
 @pytest.mark.parametrize("bad", ["-1", "5", "1.5", '"first"'])
