@@ -84,7 +84,8 @@ def test_extrapolated_masses_agree_with_direct_ones(strange, name, limit):
     """The ρ, the kaon and the K* found directly, then extrapolated from below a limit
     lowered to ``limit`` (reaches of 1.3–1.4).  The issue asks agreement within the
     quoted uncertainty; the uncertainty must also be informative (< 5% of the mass).
-    Measured on the reduced grid: MEASURED_TABLE."""
+    Measured on the reduced grid: ρ 0.72535 → 0.72434 ± 0.018, kaon 0.49373 → 0.49373 ±
+    4e-5 (off by 2.5e-7), K* 0.92246 → 0.92048 ± 0.015; 34–55 s each on two busy cores."""
     cfg, quarks, store = strange
     direct = pipeline.solve_meson(cfg, _meson(cfg, name), quarks, store, eta_spread=False).core.mass_gev
     ex = pipeline.extrapolate_meson(cfg, _meson(cfg, name), quarks, limit_gev=limit)
@@ -99,7 +100,8 @@ def test_run_extrapolates_a_state_above_the_limit(monkeypatch):
     ``mass_limit``): the pion is solved, the ρ lies above and comes back extrapolated,
     in the summary (``extrapolated``: true, flavours, η; no decay constant) and the table;
     lowered to 0.1 GeV, the ρ cannot be reached by any continuation and the run fails
-    with the search's message and the extrapolation's reason."""
+    with the search's message and the extrapolation's reason.  Measured: ρ 0.72584 ± 0.0094
+    (direct 0.72535); about 60–100 s on two busy cores."""
     from rlmeson import cli
 
     raw = tomllib.loads((CONFIGS / "mt-pion-ti.toml").read_text())
