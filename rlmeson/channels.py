@@ -103,10 +103,10 @@ class Channel:
             raise ValueError("charge conjugation needs z nodes symmetric about 0")
         return np.einsum("kji,...ikq->...jkq", self.charge_matrix(z), np.asarray(amp)[..., ::-1, :])
 
-    def charge_parity(self, amp, z, weights=None) -> float:
-        """⟨Γ, Γ_C⟩/⟨Γ, Γ⟩ on the coefficient vector (±1 for a C eigenstate; the distance
-        from ±1 measures how well the state is one)."""
-        a = np.asarray(amp).reshape((-1, self.n_basis, len(z)) + np.asarray(amp).shape[-1:])[0]
+    def charge_parity(self, amp, z) -> float:
+        """⟨Γ, Γ_C⟩/⟨Γ, Γ⟩ on the coefficients (n_basis, n_z, n_q) of one amplitude (±1 for
+        a C eigenstate; the distance from ±1 measures how well the state is one)."""
+        a = np.asarray(amp)
         c = self.charge_conjugate(a, z)
         return float((np.vdot(a, c) / np.vdot(a, a)).real)
 
