@@ -472,10 +472,12 @@ def check_mass_guess(cfg: Config, meson: MesonConfig, quarks: dict[str, QuarkRes
 
 def bound_state(cfg: Config, meson: MesonConfig, quarks: dict[str, QuarkResult],
                 grid: bse.BSEGrid, progress: Progress = _quiet, spectrum: bool = False,
-                eta_spread: bool = False) -> BoundStateCore:
+                eta_spread: bool = False, bracket: float = 0.15) -> BoundStateCore:
     """Mass, normalised amplitude and observables of one meson on one grid (and, with
     ``spectrum``, the leading eigenvalues at a few P² for the λ(P²) figure; with
-    ``eta_spread``, the mass at a second momentum partition, ``eta_spread``)."""
+    ``eta_spread``, the mass at a second momentum partition, ``eta_spread``).  ``bracket``:
+    the relative half-width of the first bracket around the guess (small when the guess
+    is the same state's mass on another grid)."""
     kern = kernel_of(cfg)
     q1, q2 = quarks[meson.quarks[0]], quarks[meson.quarks[1]]
     ch = channels.get(meson.channel)
@@ -507,7 +509,7 @@ def bound_state(cfg: Config, meson: MesonConfig, quarks: dict[str, QuarkResult],
                                          spare=EXCITATION_SPARE)
             lead = search.Follower(bs, sol.eigenvector, meson.excitation + 1 + EXCITATION_SPARE, parity)
         else:
-            sol = search.find_mass(bs, guess, m_max, parity=parity)
+            sol = search.find_mass(bs, guess, m_max, step=bracket, parity=parity)
         mass, vec, evals = sol.mass_gev, sol.eigenvector, sol.evaluations
         nrm = _normalise_at(bs, lead, mass, vec)
         curve = _merge(sol.curve, lead.curve)
@@ -854,6 +856,11 @@ def _core_from_store(prefix: str, arrays: dict, attrs: dict) -> BoundStateCore:
                           c_parity=a.get("c_parity"), excitation=int(a.get("excitation") or 0))
 
 
+#: First bracket of the error-grid search, relative to the fine grid's mass (the two
+#: differ by < 1e-4 on the shipped grids; a wider bracket is grown if needed).
+COARSE_BRACKET = 0.01
+
+
 def solve_meson(cfg: Config, meson: MesonConfig, quarks: dict[str, QuarkResult],
                 store: Store | None = None, progress: Progress = _quiet,
                 eta_spread: bool | None = None) -> MesonResult:
@@ -895,7 +902,7 @@ def _solve_meson(cfg: Config, meson: MesonConfig, quarks: dict[str, QuarkResult]
         progress(f"{meson.name}: second, coarser grid for the error estimate")
         coarse = bound_state(cfg, MesonConfig(meson.name, meson.channel, meson.quarks, meson.eta,
                                               core.mass_gev or meson.mass_guess_gev, meson.excitation),
-                             quarks, grid.coarser())
+                             quarks, grid.coarser(), bracket=COARSE_BRACKET)
     res = MesonResult(core=core, coarse=coarse, seconds=time.perf_counter() - t0, **common)
     if store is not None:
         arrays, attrs = {}, {"version": __version__, "meson_key": key, "channel": meson.channel}
@@ -904,81 +911,6 @@ def _solve_meson(cfg: Config, meson: MesonConfig, quarks: dict[str, QuarkResult]
             _core_to_store("coarse_", coarse, arrays, attrs)
         store.try_put("meson", key, arrays, attrs)
     return res
-
-
-# ----------------------------------------------------------------------------------------
-# A whole run
-
-@dataclass(frozen=True)
-class RunResult:
-    config: Config
-    quarks: dict[str, QuarkResult]
-    mesons: list[MesonResult]
-    seconds: float
-    #: states above M_max whose masses were extrapolated (``extrapolate_meson``); after
-    #: ``mesons`` in the summary's list (exports pair ``mesons`` with its first entries)
-    extrapolated: list[ExtrapolatedMeson] = field(default_factory=list)
-
-    def inputs(self) -> dict:
-        """The resolved config (defaults filled in, in the nesting of the TOML file) and
-        the conventions every number of the run is reported in."""
-        conv = self.config.output.decay_constant_convention
-        kern = {**self.config.kernel.relevant(), "regularisation_scale_gev2": kernel_of(self.config).scale_gev2}
-        return {**self.config.to_dict(), "kernel": kern, "conventions": {
-            **QUARK_CONVENTIONS,
-            "rest_frame": "P = (0, 0, 0, iM), P^2 = -M^2 on shell; q^ = (0, 0, sqrt(1 - z^2), z)",
-            "decay_constant": observables.CONVENTION_LABELS[conv],
-            "amplitude": ("normalised Bethe-Salpeter amplitude in the same convention as f (Nakanishi "
-                          "normalisation; divided by sqrt 2 in the 92 MeV convention)"),
-            "colours": N_C,
-        }}
-
-    def summary(self) -> dict:
-        k = kernel_of(self.config)
-        first = self.config.flavours[0].name
-        return {
-            "config": self.config.name,
-            "config_hash": self.config.hash(),
-            "package": "rlmeson",
-            "package_version": __version__,
-            "regularisation": k.regularisation,
-            "regularisation_scale_gev2": k.scale_gev2,
-            "regularisation_description": k.label,
-            "continuation": self.config.bse.continuation,
-            "inputs": self.inputs(),
-            "quark": self.quarks[first].summary(),
-            "quarks": {n: q.summary() for n, q in self.quarks.items()},
-            "mesons": [m.summary() for m in self.mesons] + [e.summary() for e in self.extrapolated],
-            "seconds": self.seconds,
-        }
-
-
-def run(cfg: Config, store: Store | None = None, progress: Progress = _quiet) -> RunResult:
-    t0 = time.perf_counter()
-    needed = [f.name for f in cfg.flavours]
-    quarks = {n: solve_quark(cfg, n, store, progress) for n in needed}
-    mesons, beyond = [], []
-    for i, m in enumerate(cfg.mesons):
-        try:
-            try:
-                mesons.append(solve_meson(cfg, m, quarks, store, progress))
-            except search.NoBoundState as e:   # above M_max: extrapolate, or say why not
-                progress(f"{m.name}: {e}")
-                try:
-                    beyond.append(extrapolate_meson(cfg, m, quarks, progress, reason=str(e)))
-                except extrapolate.NotExtrapolable as why:
-                    raise search.NoBoundState(f"{e}; no extrapolation beyond M_max either: {why}") from None
-        except (ConfigError, KeyboardInterrupt):
-            raise
-        except Exception as e:  # say which meson could not be computed
-            if e.args and isinstance(e.args[0], str):
-                e.args = (f"{meson_label(i, m.name)}: {e.args[0]}", *e.args[1:])
-            raise
-    return RunResult(config=cfg, quarks=quarks, mesons=mesons, seconds=time.perf_counter() - t0,
-                     extrapolated=beyond)
-
-
-__all__ = ["run", "solve_quark", "solve_meson", "bound_state", "kernel_of"]
 
 
 # ----------------------------------------------------------------------------------------
@@ -1082,6 +1014,81 @@ def extrapolate_meson(cfg: Config, meson: MesonConfig, quarks: dict[str, QuarkRe
                              extrapolation=ex, reason=reason, seconds=time.perf_counter() - t0,
                              convention=cfg.output.decay_constant_convention,
                              c_parity=parity if solver is not extrapolate.plain_eigen else None)
+
+
+# ----------------------------------------------------------------------------------------
+# A whole run
+
+@dataclass(frozen=True)
+class RunResult:
+    config: Config
+    quarks: dict[str, QuarkResult]
+    mesons: list[MesonResult]
+    seconds: float
+    #: states above M_max whose masses were extrapolated (``extrapolate_meson``); after
+    #: ``mesons`` in the summary's list (exports pair ``mesons`` with its first entries)
+    extrapolated: list[ExtrapolatedMeson] = field(default_factory=list)
+
+    def inputs(self) -> dict:
+        """The resolved config (defaults filled in, in the nesting of the TOML file) and
+        the conventions every number of the run is reported in."""
+        conv = self.config.output.decay_constant_convention
+        kern = {**self.config.kernel.relevant(), "regularisation_scale_gev2": kernel_of(self.config).scale_gev2}
+        return {**self.config.to_dict(), "kernel": kern, "conventions": {
+            **QUARK_CONVENTIONS,
+            "rest_frame": "P = (0, 0, 0, iM), P^2 = -M^2 on shell; q^ = (0, 0, sqrt(1 - z^2), z)",
+            "decay_constant": observables.CONVENTION_LABELS[conv],
+            "amplitude": ("normalised Bethe-Salpeter amplitude in the same convention as f (Nakanishi "
+                          "normalisation; divided by sqrt 2 in the 92 MeV convention)"),
+            "colours": N_C,
+        }}
+
+    def summary(self) -> dict:
+        k = kernel_of(self.config)
+        first = self.config.flavours[0].name
+        return {
+            "config": self.config.name,
+            "config_hash": self.config.hash(),
+            "package": "rlmeson",
+            "package_version": __version__,
+            "regularisation": k.regularisation,
+            "regularisation_scale_gev2": k.scale_gev2,
+            "regularisation_description": k.label,
+            "continuation": self.config.bse.continuation,
+            "inputs": self.inputs(),
+            "quark": self.quarks[first].summary(),
+            "quarks": {n: q.summary() for n, q in self.quarks.items()},
+            "mesons": [m.summary() for m in self.mesons] + [e.summary() for e in self.extrapolated],
+            "seconds": self.seconds,
+        }
+
+
+def run(cfg: Config, store: Store | None = None, progress: Progress = _quiet) -> RunResult:
+    t0 = time.perf_counter()
+    needed = [f.name for f in cfg.flavours]
+    quarks = {n: solve_quark(cfg, n, store, progress) for n in needed}
+    mesons, beyond = [], []
+    for i, m in enumerate(cfg.mesons):
+        try:
+            try:
+                mesons.append(solve_meson(cfg, m, quarks, store, progress))
+            except search.NoBoundState as e:   # above M_max: extrapolate, or say why not
+                progress(f"{m.name}: {e}")
+                try:
+                    beyond.append(extrapolate_meson(cfg, m, quarks, progress, reason=str(e)))
+                except extrapolate.NotExtrapolable as why:
+                    raise search.NoBoundState(f"{e}; no extrapolation beyond M_max either: {why}") from None
+        except (ConfigError, KeyboardInterrupt):
+            raise
+        except Exception as e:  # say which meson could not be computed
+            if e.args and isinstance(e.args[0], str):
+                e.args = (f"{meson_label(i, m.name)}: {e.args[0]}", *e.args[1:])
+            raise
+    return RunResult(config=cfg, quarks=quarks, mesons=mesons, seconds=time.perf_counter() - t0,
+                     extrapolated=beyond)
+
+
+__all__ = ["run", "solve_quark", "solve_meson", "bound_state", "kernel_of"]
 
 
 # ----------------------------------------------------------------------------------------
