@@ -141,13 +141,16 @@ def test_run_writes_outputs_and_summary(tmp_path, capsys, monkeypatch):
 
 
 def test_no_bound_state_below_m_max_is_a_one_line_failure(tmp_path, capsys, monkeypatch):
-    """A weak interaction binds nothing: the search reports the largest λ and M_max."""
+    """A weak interaction binds no excited vector below M_max, and excitations are not
+    extrapolated beyond it: one line that names the meson, the largest λ and M_max.  (Its
+    ground state is extrapolated past M_max instead: tests/test_extrapolation.py.)"""
     monkeypatch.setenv("RLMESON_CACHE", str(tmp_path / "cache"))
     text = ('name = "weak"\n[kernel]\nregularisation = "hard-cutoff"\n[interaction]\nomega_gev = 0.4\nstrength_gev2 = 0.05\n'
             'uv_strength = 0.2\n[quarks.l]\ncurrent_mass_gev = 0.2\n[[mesons]]\nname = "v"\nchannel = "vector"\n'
-            '[output]\nerror_bar = false\n')
+            'excitation = 1\n[output]\nerror_bar = false\n')
     code, out, err = _run(["run", _write(tmp_path, text), "--out", tmp_path / "o", "--quiet"], capsys)
     assert code == 1 and err.count("\n") == 1
-    assert "largest λ reached" in err and "M_max" in err and "nan" not in err.lower()
+    assert "largest lambda" in err and "M_max" in err and "nan" not in err.lower()
+    assert "no extrapolation beyond M_max either" in err
     assert err.startswith('rlmeson: NoBoundState: mesons["v"]: ')      # which meson, by name
     assert not (tmp_path / "o" / "summary.json").exists()
