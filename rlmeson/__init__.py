@@ -67,15 +67,15 @@ def scan(cfg, workers: int | None = 1, dask: str | None = None, cache: bool = Tr
     return res
 
 
-def __getattr__(name):
-    # ``rlmeson.fit`` is the module rlmeson/fit.py, callable as the API function
-    # ``rlmeson.fit(cfg, ...)`` (``rlmeson.fit.fit``), imported on first use; the module
-    # name stays free for ``rlmeson.fit.tune_current_mass`` and the rest of it.
-    if name == "fit":
-        import importlib
+def fit(cfg, overrides=(), cache: bool = True, out=None, progress=None):
+    """Fit the ``[fit]`` parameters of ``cfg`` (a path, a dict of the TOML layout, or a
+    ``FitSpec``) to its targets by least squares with exact derivatives; returns a
+    ``FitResult`` (``.parameters``, ``.achieved``, ``.converged``, ``.history``,
+    ``.covariance()``, ``.config`` the fitted config, ``.to_json()`` what fit.json holds).
+    ``out``: also write fit.json, fitted.toml, report.txt and fit.png there."""
+    from .fit import fit as _fit
 
-        return importlib.import_module(f"{__name__}.fit")
-    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
+    return _fit(cfg, overrides=overrides, cache=cache, out=out, progress=progress)
 
 
 def open_run(path):

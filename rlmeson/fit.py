@@ -19,9 +19,7 @@ from __future__ import annotations
 
 import dataclasses
 import math
-import sys
 import time
-import types
 from collections import OrderedDict
 from dataclasses import dataclass, field
 
@@ -657,13 +655,3 @@ def fit(cfg, overrides=(), cache: bool = True, out=None, progress=None):
         Path(out).mkdir(parents=True, exist_ok=True)
         write_outputs(result, out)
     return result
-
-
-class _CallableModule(types.ModuleType):
-    """``rlmeson.fit`` is this module and, called, the API function ``fit``."""
-
-    def __call__(self, *args, **kwargs):
-        return fit(*args, **kwargs)
-
-
-sys.modules[__name__].__class__ = _CallableModule
