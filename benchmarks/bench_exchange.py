@@ -23,7 +23,9 @@ def main():
     import numpy as np
 
     import rlmeson
-    from rlmeson import config, exchange, pipeline, quarkplane
+    from rlmeson.io import config, exchange
+    from rlmeson.workflows import pipeline
+    from rlmeson.quark import quarkplane
 
     text = """
 name = "bench-exchange"

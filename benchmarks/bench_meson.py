@@ -48,7 +48,8 @@ COLD = """
 import json, time
 t0 = time.perf_counter()
 import rlmeson
-from rlmeson import config, pipeline
+from rlmeson.io import config
+from rlmeson.workflows import pipeline
 cfg = config.parse('''{cfg}''')
 q = {{"l": pipeline.solve_quark(cfg, "l")}}
 t1 = time.perf_counter()
@@ -59,7 +60,7 @@ print(json.dumps({{"quark": t1 - t0, "pion": t2 - t1, "mass": core.mass_gev}}))
 
 
 def _meson(cfg, quarks, which, grid):
-    from rlmeson import pipeline
+    from rlmeson.workflows import pipeline
 
     t0 = time.perf_counter()
     core = pipeline.bound_state(cfg, cfg.mesons[which], quarks, grid)
@@ -72,7 +73,9 @@ def kaon_rows(config_name: str) -> list[tuple]:
     mass found again at a second momentum partition).  Target: ≤ 3 s; spread ≤ 2×."""
     from pathlib import Path
 
-    from rlmeson import config, ladder, pipeline
+    from rlmeson.io import config
+    from rlmeson.model import ladder
+    from rlmeson.workflows import pipeline
 
     cfg = config.load(Path(__file__).resolve().parents[1] / "configs" / f"{config_name}.toml")
     quarks = {f.name: pipeline.solve_quark(cfg, f.name) for f in cfg.flavours}
@@ -117,7 +120,10 @@ def main():
         return
 
     import rlmeson  # noqa: F401
-    from rlmeson import bse, config, ladder, pipeline
+    from rlmeson.meson import bse
+    from rlmeson.io import config
+    from rlmeson.model import ladder
+    from rlmeson.workflows import pipeline
 
     cfg = config.parse(CFG.format(reg=reg))
     quarks = {"l": pipeline.solve_quark(cfg, "l")}
@@ -165,7 +171,7 @@ def main():
 
     # kernel build time against grid size
     kern = pipeline.kernel_of(cfg)
-    from rlmeson.channels import PSEUDOSCALAR
+    from rlmeson.model.channels import PSEUDOSCALAR
 
     pts = []
     for scale in (2.0, 1.4, 1.0, 0.7, 0.5):

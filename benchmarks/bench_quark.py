@@ -20,8 +20,9 @@ COLD = """
 import json, time
 t0 = time.perf_counter()
 import rlmeson
-from rlmeson import gap, interactions
-from rlmeson.kernel import Kernel
+from rlmeson.quark import gap
+from rlmeson.model import interactions
+from rlmeson.model.kernel import Kernel
 t1 = time.perf_counter()
 k = Kernel("maris-tandy", interactions.get("maris-tandy").defaults(), regularisation="{reg}")
 s = gap.solve(k, 0.00374, 19.0)
@@ -33,9 +34,10 @@ print(json.dumps({{"import": t1 - t0, "solve": t2 - t1}}))
 def main():
 
     import rlmeson  # noqa: F401
-    from rlmeson import gap, interactions, ladder, routed
-    from rlmeson import quadrature as qd
-    from rlmeson.kernel import Kernel
+    from rlmeson.quark import gap, routed
+    from rlmeson.model import interactions, ladder
+    from rlmeson.numerics import quadrature as qd
+    from rlmeson.model.kernel import Kernel
 
     rows = []
     for reg in ("hard-cutoff", "translation-invariant"):

@@ -1,6 +1,6 @@
 """rlmeson: mesons in rainbow-ladder truncation from the gap and Bethe–Salpeter equations."""
 
-# JAX is configured (float64, compilation cache) by ``rlmeson._jax``, which every module
+# JAX is configured (float64, compilation cache) by ``rlmeson.numerics._jax``, which every module
 # that computes imports; ``import rlmeson`` and reading a config do not import JAX.
 
 __version__ = "0.1.0"
@@ -9,14 +9,14 @@ __version__ = "0.1.0"
 def open_propagator(path):
     """A dressed quark from a file written by ``rlmeson export`` (netCDF-4 or HDF5):
     A, B, σ_V, σ_S, M at real p² and at complex p² inside the exported region."""
-    from .readers import open_propagator as _open
+    from .io.readers import open_propagator as _open
 
     return _open(path)
 
 
 def open_amplitude(path):
     """A normalised Bethe–Salpeter amplitude from a file written by ``rlmeson export``."""
-    from .readers import open_amplitude as _open
+    from .io.readers import open_amplitude as _open
 
     return _open(path)
 
@@ -24,7 +24,7 @@ def open_amplitude(path):
 def load_config(source, overrides=()):
     """A validated config from a TOML file path or a dict of the same layout, with
     optional ``KEY=VALUE`` overrides (as ``--set`` on the command line)."""
-    from . import config
+    from .io import config
 
     if isinstance(source, dict):
         return config.from_dict(config.apply_overrides(source, overrides))
@@ -35,7 +35,7 @@ def run(cfg, cache: bool = True, progress=None):
     """Solve every quark and meson of ``cfg`` (a config, path or dict); returns the
     pipeline's ``RunResult`` (``.summary()`` is what summary.json holds).  Results are
     read from and written to the cache unless ``cache`` is False."""
-    from . import pipeline
+    from .workflows import pipeline
 
     if not hasattr(cfg, "hash"):
         cfg = load_config(cfg)
@@ -46,13 +46,13 @@ def run(cfg, cache: bool = True, progress=None):
 def scan(cfg, workers: int | None = 1, dask: str | None = None, cache: bool = True, overrides=(),
          out=None, progress=None):
     """Run the ``[scan]`` axes of ``cfg`` (a path, a dict of the TOML layout, or a
-    ``rlmeson.scans.Scan``); returns a ``ScanResult`` (``.dataset`` the xarray Dataset over
+    ``rlmeson.workflows.scans.Scan``); returns a ``ScanResult`` (``.dataset`` the xarray Dataset over
     the axes, ``.results`` every point with its status, ``.failed``).  ``workers``: 1 in
     this process, N worker processes, None one per core; ``dask``: a scheduler address or
     ``"local"``.  ``out``: also write scan.nc, scan.json and the figures there."""
     from pathlib import Path
 
-    from . import scans as _scan
+    from .workflows import scans as _scan
 
     if isinstance(cfg, dict):
         sc = _scan.from_config_dict(cfg, overrides)
@@ -73,7 +73,7 @@ def fit(cfg, overrides=(), cache: bool = True, out=None, progress=None):
     ``FitResult`` (``.parameters``, ``.achieved``, ``.converged``, ``.history``,
     ``.covariance()``, ``.config`` the fitted config, ``.to_json()`` what fit.json holds).
     ``out``: also write fit.json, fitted.toml, report.txt and fit.png there."""
-    from .fit import fit as _fit
+    from .workflows.fit import fit as _fit
 
     return _fit(cfg, overrides=overrides, cache=cache, out=out, progress=progress)
 
@@ -81,6 +81,6 @@ def fit(cfg, overrides=(), cache: bool = True, out=None, progress=None):
 def open_run(path):
     """A run directory written by ``rlmeson run``: ``.summary``, ``.quarks``, ``.mesons``,
     ``.config``, ``.propagator(flavour)``, ``.amplitude(meson)``."""
-    from .readers import open_run as _open
+    from .io.readers import open_run as _open
 
     return _open(path)

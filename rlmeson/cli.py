@@ -183,7 +183,7 @@ def _fmt(x, spec=".6g"):
 
 
 def cmd_quark(args) -> int:
-    from . import config
+    from .io import config
 
     cfg = config.load(args.config, args.set)
     flavour = cfg.flavours[0].name if args.flavour is None else args.flavour
@@ -192,12 +192,13 @@ def cmd_quark(args) -> int:
                          + ", ".join(f.name for f in cfg.flavours))
     if args.plot:
         _check_file_destination("--plot", Path(args.plot))
-        from .store import remove_stale_temporaries
+        from .io.store import remove_stale_temporaries
 
         remove_stale_temporaries(Path(args.plot).absolute().parent)  # a killed run's half-written figure
     _echo(cfg, config, quiet=False)
     _check_store(cfg, args.no_cache)
-    from . import pipeline, plots  # the numerics (JAX) only after the input is checked
+    from .workflows import pipeline  # the numerics (JAX) only after the input is checked
+    from .io import plots
     if args.plot:
         _figure_format(plots, args.plot)   # before solving: a bad suffix is a usage error
     store = pipeline.store_of(cfg, not args.no_cache)
@@ -245,15 +246,16 @@ def _default_out(cfg) -> Path:
 
 
 def cmd_run(args) -> int:
-    from . import config
+    from .io import config
 
     cfg = config.load(args.config, args.set)
     final = Path(args.out) if args.out else _default_out(cfg)
     out = _stage(final, "--out" if args.out else "the default output directory")  # checked before any work
     _echo(cfg, config, args.quiet)
     _check_store(cfg, args.no_cache)
-    from . import exchange, export, pipeline, plots  # the numerics (JAX) only after the input is checked
-    from .store import atomic_write_text
+    from .io import exchange, export, plots  # the numerics (JAX) only after the input is checked
+    from .workflows import pipeline
+    from .io.store import atomic_write_text
     store = pipeline.store_of(cfg, not args.no_cache)
     log: list[str] = []
     say = _progress(args.quiet, log)
@@ -283,7 +285,7 @@ def cmd_run(args) -> int:
 
 def _config_of_source(source: str, args_set=()):
     """(config, meson masses of the run or None) of a run directory or a config file."""
-    from . import config
+    from .io import config
 
     src = Path(source)
     if src.is_dir():
@@ -363,7 +365,8 @@ def cmd_export(args) -> int:
 
 def _export(args, cfg, masses, out: Path) -> int:
     _check_store(cfg, args.no_cache)
-    from . import exchange, pipeline  # the numerics (JAX) only after the input is checked
+    from .io import exchange  # the numerics (JAX) only after the input is checked
+    from .workflows import pipeline
 
     store = pipeline.store_of(cfg, not args.no_cache)
     say = _progress(args.quiet)
@@ -402,8 +405,8 @@ def cmd_scan(args) -> int:
     """Every point of the [scan] axes through the pipeline; one Dataset, figures, a log."""
     import hashlib
 
-    from . import scans as scanning
-    from .progress import bar
+    from .workflows import scans as scanning
+    from .workflows.progress import bar
 
     sc = scanning.load(args.config, args.set)
     if args.workers is not None and not 1 <= args.workers <= 64:
@@ -419,7 +422,7 @@ def cmd_scan(args) -> int:
     out = _stage(final, "--out" if args.out else "the default output directory")
     first = sc.config_at(sc.points()[0])
     _check_store(first, args.no_cache)
-    from . import executors
+    from .workflows import executors
 
     log: list[str] = []
     say = _progress(args.quiet, log)
@@ -438,7 +441,7 @@ def cmd_scan(args) -> int:
     if "chiral_condensate_gev3" in res.dataset.attrs:
         say(f"GMOR: chiral condensate -<qbar q>^0 = {res.dataset.attrs['chiral_condensate_gev3']:.6g} GeV^3 at "
             f"zeta = {res.dataset.attrs['gmor_renormalisation_point_gev']:g} GeV")
-    from .store import atomic_write_text
+    from .io.store import atomic_write_text
 
     res.write(out, {"command": ["rlmeson", *map(str, args.argv)], "package_version": __version__})
     atomic_write_text(out / "run.log", "\n".join(log) + "\n")
@@ -452,7 +455,8 @@ def cmd_scan(args) -> int:
 def cmd_fit(args) -> int:
     """Least squares of the [fit] parameters on its targets; fit.json, the fitted config,
     a report and a figure."""
-    from . import config, fitspec
+    from .io import config
+    from .workflows import fitspec
 
     spec = fitspec.load(args.config, args.set)
     start = spec.config_at(spec.start)
@@ -460,9 +464,9 @@ def cmd_fit(args) -> int:
     out = _stage(final, "--out" if args.out else "the default output directory")  # checked before any work
     _echo(start, config, args.quiet)
     _check_store(start, args.no_cache)
-    from . import fit, pipeline
-    from .progress import bar
-    from .store import atomic_write_text
+    from .workflows import fit, pipeline
+    from .workflows.progress import bar
+    from .io.store import atomic_write_text
 
     store = pipeline.store_of(start, not args.no_cache)
     log: list[str] = []
@@ -489,7 +493,7 @@ def cmd_fit(args) -> int:
 
 
 def _show_fit(d: Path) -> int:
-    from . import fit
+    from .workflows import fit
 
     try:
         fj = json.loads((d / "fit.json").read_text(encoding="utf-8"))
@@ -612,7 +616,7 @@ def _figure_format(plots, path) -> str:
 def cmd_plot(args) -> int:
     """Redraw the figures of one or more runs from their results.h5 (no solving); with
     several runs, M(p²) and the figures of same-named mesons are overlaid."""
-    from . import plots
+    from .io import plots
 
     fmt = args.format.lower()
     if fmt not in plots.FORMATS:
@@ -650,7 +654,7 @@ def _check_store(cfg, no_cache: bool) -> None:
     """The result cache must be usable before anything is computed (exit 2 otherwise)."""
     if no_cache:
         return
-    from .store import Store
+    from .io.store import Store
 
     store = Store(cfg.output.cache_dir) if cfg.output.cache_dir else Store()
     why = store.check_writable()
@@ -703,7 +707,7 @@ def _stage(final: Path, option: str) -> Path:
     by rlmeson), which is then replaced as a whole; anything else is refused before any
     work, as is a place that cannot be written.  The fresh directory sits beside
     ``final`` under a temporary name; leftovers of killed runs there are removed."""
-    from . import store
+    from .io import store
 
     here = Path.cwd().resolve()
     if final.exists() and (final.resolve() == here or final.resolve() in here.parents):
@@ -735,7 +739,7 @@ def _stage(final: Path, option: str) -> Path:
 
 def _move_into_place(staged: Path, final: Path) -> None:
     """Replace ``final`` (absent, empty or an earlier run) by the finished run."""
-    from . import store
+    from .io import store
 
     old = None
     if final.exists():
@@ -802,7 +806,7 @@ def main(argv=None) -> int:
 
 
 def _main(argv) -> int:
-    from .config import ConfigError
+    from .io.config import ConfigError
 
     try:
         try:

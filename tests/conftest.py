@@ -16,8 +16,10 @@ import numpy as np  # noqa: E402
 import pytest  # noqa: E402
 
 import rlmeson  # noqa: E402,F401
-from rlmeson import bse, channels, gap, interactions  # noqa: E402
-from rlmeson.kernel import Kernel  # noqa: E402
+from rlmeson.meson import bse
+from rlmeson.model import channels, interactions
+from rlmeson.quark import gap
+from rlmeson.model.kernel import Kernel  # noqa: E402
 
 ZETA = 19.0
 M_LIGHT = 0.00374  # GeV at ζ = 19 GeV: the light mass of the published Maris–Tandy fit (from memory)
@@ -138,7 +140,7 @@ def run_cli(args):
 def normalised_at(bs, mass, vec):
     """The normalised amplitude at ``mass`` from eigenvector ``vec`` (λ at the masses of
     the eigenvalue derivative, then both normalisations), as the pipeline does."""
-    from rlmeson import observables, search
+    from rlmeson.meson import observables, search
 
     lead = search.Leading(bs)
     lam = {}

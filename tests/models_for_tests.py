@@ -6,7 +6,7 @@ complex gluon momentum) stays analytic below M ≈ 0.6 GeV and must agree with t
 shifted one; the tail keeps a hard cutoff's surface term alive.
 """
 
-from rlmeson import interactions
+from rlmeson.model import interactions
 
 
 def tame(s, p):

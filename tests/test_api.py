@@ -9,7 +9,7 @@ import pytest
 
 import rlmeson
 from conftest import run_cli
-from rlmeson.config import ConfigError
+from rlmeson.io.config import ConfigError
 
 
 def test_overrides_are_validated_like_the_file_and_change_the_hash():
@@ -65,7 +65,7 @@ def test_api_run_reproduces_the_command_line_run(figure_run):
 def test_run_directory_keeps_config_manifest_and_log(figure_run):
     """A run directory can be reproduced and audited from its own files: the resolved
     config (same hash), a manifest of what produced it, and the progress log."""
-    from rlmeson import config
+    from rlmeson.io import config
 
     run_dir, _ = figure_run
     summ = json.loads((run_dir / "summary.json").read_text())

@@ -14,7 +14,9 @@ import numpy as np
 import pytest
 
 from conftest import M_LIGHT, ZETA, mt_kernel, normalised_at
-from rlmeson import bse, channels, gap, identities, observables, search
+from rlmeson.meson import bse, identities, observables, search
+from rlmeson.model import channels
+from rlmeson.quark import gap
 
 
 _normalised = normalised_at

@@ -12,8 +12,9 @@ independently of the coefficient-space map the solver uses.
 import numpy as np
 import pytest
 
-from rlmeson import bse, channels, search
-from rlmeson.dirac import GAMMA
+from rlmeson.meson import bse, search
+from rlmeson.model import channels
+from rlmeson.numerics.dirac import GAMMA
 
 #: A small grid (wider radial panels, 6 nodes each, 4 z nodes): the ρ's λ(M = 0.7 GeV)
 #: differs by 6e-4 from that on n_z = 6, order 8 (measured), far less than the gaps
@@ -171,7 +172,7 @@ def test_run_summary_reports_c_parity_and_labelled_eigenvalues(figure_run):
 
 @pytest.mark.parametrize("bad", ["-1", "5", "1.5", '"first"'])
 def test_excitation_key_is_checked(bad):
-    from rlmeson import config
+    from rlmeson.io import config
 
     text = ('name = "x"\n[quarks.l]\ncurrent_mass_gev = 0.005\n'
             f'[[mesons]]\nname = "pi"\nchannel = "pseudoscalar"\nexcitation = {bad}\n')
@@ -189,7 +190,8 @@ def test_pipeline_excited_vector_and_unreachable_pion_excitation():
     """Through the meson stage: `excitation = 1` of the vector is a C = −1 state above the
     ρ (its amplitude normalised by both methods alike), and the π's first excitation,
     above M_max of the light quark, is reported as not reached, not as another state."""
-    from rlmeson import config, pipeline
+    from rlmeson.io import config
+    from rlmeson.workflows import pipeline
 
     cfg = config.parse("""
 name = "excited"

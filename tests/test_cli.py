@@ -9,8 +9,10 @@ import sys
 import h5py
 import pytest
 
-from rlmeson import cli, config, pipeline
-from rlmeson.store import Store
+from rlmeson import cli
+from rlmeson.io import config
+from rlmeson.workflows import pipeline
+from rlmeson.io.store import Store
 
 QUARK_CFG = """
 name = "cli-check"

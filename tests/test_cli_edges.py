@@ -20,7 +20,9 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from rlmeson import cli, config, pipeline, store as st
+from rlmeson import cli
+from rlmeson.io import config, store as st
+from rlmeson.workflows import pipeline
 
 ROOT = Path(__file__).resolve().parents[1]
 LIGHT = 'name = "edge"\n[kernel]\nregularisation = "hard-cutoff"\n[quarks.l]\ncurrent_mass_gev = {mass}\n'
@@ -180,11 +182,11 @@ def test_package_source_edit_changes_the_code_tag(tmp_path):
     """An edited checkout must not reuse results: the code tag hashes the package files."""
     import shutil
 
-    pkg = Path(pipeline.__file__).resolve().parent
+    pkg = Path(pipeline.__file__).resolve().parents[1]          # the package, all its subpackages
     copy = tmp_path / "rlmeson"
     shutil.copytree(pkg, copy, ignore=shutil.ignore_patterns("__pycache__"))
     assert pipeline.source_hash(copy) == pipeline.source_hash(pkg) == pipeline.package_source_hash()
-    with open(copy / "gap.py", "a") as fh:
+    with open(copy / "quark" / "gap.py", "a") as fh:          # an edit inside a subpackage
         fh.write("\n# an edit\n")
     assert pipeline.source_hash(copy) != pipeline.source_hash(pkg)
     assert pipeline.package_source_hash() in pipeline._code_tag(config.parse(LIGHT.format(mass=0.005)))

@@ -1,6 +1,6 @@
-"""Tests of rlmeson.config.
+"""Tests of rlmeson.io.config.
 
-Basis: the schema in the module docstring of rlmeson.config and the registries it reads
+Basis: the schema in the module docstring of rlmeson.io.config and the registries it reads
 (interactions, kernel.REGULARISATIONS, channels, bse.CONTINUATIONS).  Expected values
 are the defaults and ranges written in that schema; hashes are checked only for
 invariance and change, never against stored digests.
@@ -13,8 +13,8 @@ import math
 import pytest
 from hypothesis import given, settings, strategies as st
 
-from rlmeson import config as cfg
-from rlmeson.config import ConfigError
+from rlmeson.io import config as cfg
+from rlmeson.io.config import ConfigError
 
 FULL = """
 name = "mt-pion"
@@ -448,7 +448,7 @@ def test_reading_a_config_does_not_import_jax():
     import subprocess
     import sys
 
-    code = ("import sys, rlmeson.config as c\n"
+    code = ("import sys, rlmeson.io.config as c\n"
             "c.parse('name = \"x\"\\n[quarks.l]\\ncurrent_mass_gev = 0.005\\n')\n"
             "print('jax' in sys.modules)")
     r = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)

@@ -14,9 +14,10 @@ import pytest
 
 from conftest import M_LIGHT, ZETA, mt_kernel
 from models_for_tests import TAME_PARAMS
-from rlmeson import gap, ladder, routed
-from rlmeson import quadrature as qd
-from rlmeson.kernel import Kernel
+from rlmeson.quark import gap, routed
+from rlmeson.model import ladder
+from rlmeson.numerics import quadrature as qd
+from rlmeson.model.kernel import Kernel
 
 GRID_WIDTHS = (3.0, 1.2, 3.0, 3.0)  # finer in the infrared than the BSE default: these tests interpolate
 
@@ -170,7 +171,7 @@ def test_spacelike_twin_interpolates_the_real_axis_solution(pion_hard, light_har
     vector at P² = 0.1 and 0.3 GeV²: the interpolant is good to ≤ 5e-6 in A and B, median 1e-7)
     — source: the gap equation's Nyström solution is defined off its nodes by the same
     quadrature (common practice)."""
-    from rlmeson import bse
+    from rlmeson.meson import bse
 
     twin = pion_hard.spacelike_twin()
     exact = bse.BoundState(pion_hard.kernel, pion_hard.channel, pion_hard.grid, light_hard,

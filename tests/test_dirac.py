@@ -10,9 +10,10 @@ import math
 import numpy as np
 import pytest
 
-from rlmeson import channels, ladder, observables
-from rlmeson.dirac import CHARGE_C, CHARGE_C_INV, GAMMA, GAMMA5, ONE, slash, tr
-from rlmeson.kernel import C_F
+from rlmeson.model import channels, ladder
+from rlmeson.meson import observables
+from rlmeson.numerics.dirac import CHARGE_C, CHARGE_C_INV, GAMMA, GAMMA5, ONE, slash, tr
+from rlmeson.model.kernel import C_F
 
 
 def test_clifford_algebra_and_hermiticity():
@@ -91,7 +92,7 @@ def test_kernel_traces_match_a_hand_built_sandwich(rng):
 
 def test_vector_basis_is_complete_and_transverse():
     z = np.linspace(-0.9, 0.9, 7)
-    from rlmeson.dirac import rest_frame_vectors
+    from rlmeson.numerics.dirac import rest_frame_vectors
 
     qh, ph = rest_frame_vectors(z)
     t = channels.VECTOR.basis(qh, ph)  # (k, 8, 4, 4, 4)
@@ -104,7 +105,7 @@ def test_pseudoscalar_standard_basis_round_trip(rng):
     """Γ built from chosen E, F, G, H with explicit matrices is recovered exactly."""
     from types import SimpleNamespace
 
-    from rlmeson.dirac import rest_frame_vectors, sigma
+    from rlmeson.numerics.dirac import rest_frame_vectors, sigma
 
     z = np.array([-0.7, -0.2, 0.3, 0.8])
     q2 = np.array([0.3, 2.0])

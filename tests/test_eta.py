@@ -26,7 +26,10 @@ import numpy as np
 import pytest
 
 from conftest import ZETA, normalised_at
-from rlmeson import bse, channels, gap, observables, pipeline, search
+from rlmeson.meson import bse, observables, search
+from rlmeson.model import channels
+from rlmeson.quark import gap
+from rlmeson.workflows import pipeline
 
 GRID = bse.BSEGrid(n_z=6, order=6)
 M_HEAVY = 0.09  # GeV at ζ = 19 GeV: a strange-like stand-in
@@ -144,7 +147,8 @@ def test_negative_fraction_is_the_reflection_of_the_positive_one(fixture, reques
     here at η = 0.4, with the hard cutoff's boundary term too.  Measured 2.6e-14 (TI) and
     2.3e-14 (hard cutoff) relative to S at each radial node: the two solves differ only by
     rounding, as an exact symmetry of the discretised equation should."""
-    from rlmeson import ladder, propagators, routed
+    from rlmeson.model import ladder
+    from rlmeson.quark import propagators, routed
 
     sol = request.getfixturevalue(fixture)
     grid = ladder.LadderGrid(GRID.radial(sol.kernel.q2_max), 6)

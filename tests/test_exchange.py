@@ -17,7 +17,9 @@ import numpy as np
 import pytest
 import xarray as xr
 
-from rlmeson import config, exchange, pipeline, quarkplane, readers
+from rlmeson.io import config, exchange, readers
+from rlmeson.workflows import pipeline
+from rlmeson.quark import quarkplane
 
 ROOT = Path(__file__).resolve().parent.parent
 

@@ -1,5 +1,5 @@
-"""Executors (rlmeson.executors: in process, local worker processes, dask.distributed)
-and progress bars (rlmeson.progress).  No physics here: the checks are the contract --
+"""Executors (rlmeson.workflows.executors: in process, local worker processes, dask.distributed)
+and progress bars (rlmeson.workflows.progress).  No physics here: the checks are the contract --
 results in input order, every task exactly once, workers × threads ≤ cores, thread
 settings in place in the worker before JAX loads -- and the three output modes of a bar.
 """
@@ -10,8 +10,8 @@ import os
 
 import pytest
 
-from rlmeson import executors
-from rlmeson.progress import bar
+from rlmeson.workflows import executors
+from rlmeson.workflows.progress import bar
 
 
 def test_sizing_keeps_workers_times_threads_within_the_cores():
@@ -83,7 +83,7 @@ def test_workers_with_several_threads_run_jax():
 
 
 def _jax_sum(n):
-    from rlmeson._jax import jnp
+    from rlmeson.numerics._jax import jnp
 
     return float(jnp.arange(n + 1.0).sum())
 
@@ -136,7 +136,7 @@ def test_store_claim_excludes_others_and_survives_sigkill(tmp_path):
     import threading
     import time
 
-    from rlmeson.store import Store
+    from rlmeson.io.store import Store
 
     st = Store(tmp_path)
     order, told = [], []
@@ -154,7 +154,7 @@ def test_store_claim_excludes_others_and_survives_sigkill(tmp_path):
         order.append("first done")
     t.join(10)
     assert order == ["other", "first done", "second"] and len(told) == 1
-    code = ("import sys, time; from rlmeson.store import Store\n"
+    code = ("import sys, time; from rlmeson.io.store import Store\n"
             f"with Store({str(tmp_path)!r}).claim('quark', 'k3'):\n"
             "    print('held', flush=True); time.sleep(60)\n")
     p = subprocess.Popen([sys.executable, "-c", code], stdout=subprocess.PIPE, text=True)

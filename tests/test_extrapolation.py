@@ -1,4 +1,4 @@
-"""Masses beyond the parabola (rlmeson.extrapolate and its hook in pipeline.run).
+"""Masses beyond the parabola (rlmeson.meson.extrapolate and its hook in pipeline.run).
 
 Sources: analytic functions whose λ = 1 crossing is known in closed form (a rational
 function: the fits contain it exactly; an exponential: they do not); for the physics, the
@@ -20,7 +20,8 @@ import numpy as np
 import pytest
 
 import rlmeson
-from rlmeson import extrapolate, pipeline, search
+from rlmeson.meson import extrapolate, search
+from rlmeson.workflows import pipeline
 
 CONFIGS = Path(__file__).resolve().parents[1] / "configs"
 REDUCED = ["numerics.bse.order=6", "numerics.bse.z_points=4", "numerics.bse.angular_points=16",

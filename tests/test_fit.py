@@ -15,7 +15,8 @@ import tomllib
 import pytest
 
 from conftest import run_cli
-from rlmeson import config, fitspec
+from rlmeson.io import config
+from rlmeson.workflows import fitspec
 
 #: A small grid (as the figure and scan tests use) with the hard cutoff of the published
 #: Maris–Tandy setting; the closure fit starts at D = 0.8 GeV², m = 3 MeV.
@@ -149,7 +150,7 @@ def test_fitted_config_writer_reads_back(name):
     """The TOML written for a fitted config reads back to the same config (hash)."""
     from pathlib import Path
 
-    from rlmeson import fit
+    from rlmeson.workflows import fit
 
     cfg = config.load(Path(__file__).resolve().parents[1] / "configs" / f"{name}.toml")
     assert config.from_dict(tomllib.loads(fit.config_toml(cfg.to_dict()))).hash() == cfg.hash()
@@ -173,7 +174,7 @@ def test_shipped_fit_configs_are_valid():
 
 @pytest.fixture(scope="module")
 def closure(tmp_path_factory):
-    from rlmeson import fit
+    from rlmeson.workflows import fit
 
     d = tmp_path_factory.mktemp("fit")
     truth = config.from_dict(config.apply_overrides(tomllib.loads(SMALL), [f"{k}={v!r}" for k, v in TRUTH.items()]))
@@ -265,7 +266,7 @@ def test_central_differences_agree_with_exact():
     relative step of 1e-3 limits the central difference)."""
     import numpy as np
 
-    from rlmeson import fit
+    from rlmeson.workflows import fit
 
     if not fitspec.exact_available():
         pytest.skip("no exact derivatives in this install")
@@ -317,7 +318,7 @@ def test_linked_parameter_jacobian_is_the_derivative_along_the_family():
     """The chain rule for ω with D = (ωD)/ω: the fit's Jacobian column equals the central
     difference of the observables along the family (d ln m_π/d ln ω = 0.028 there: the
     family keeps the pion nearly fixed, its purpose)."""
-    from rlmeson import fit
+    from rlmeson.workflows import fit
 
     d = tomllib.loads(SMALL + FIT.replace('key = "interaction.strength_gev2"\nbounds = [0.5, 1.5]',
                                           'key = "interaction.omega_gev"\nbounds = [0.3, 0.6]\n'

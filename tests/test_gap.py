@@ -13,8 +13,8 @@ import pytest
 from scipy import integrate
 
 from conftest import M_LIGHT, ZETA
-from rlmeson import gap
-from rlmeson.kernel import Kernel
+from rlmeson.quark import gap
+from rlmeson.model.kernel import Kernel
 
 
 def test_renormalisation_conditions_at_zeta(light_hard, light_ti):

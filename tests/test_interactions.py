@@ -16,8 +16,8 @@ mp.mp.dps = 40
 import numpy as np
 import pytest
 
-from rlmeson import interactions
-from rlmeson.kernel import Kernel
+from rlmeson.model import interactions
+from rlmeson.model.kernel import Kernel
 
 
 def _reference(model, s, p):

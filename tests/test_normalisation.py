@@ -21,7 +21,8 @@ import math
 import numpy as np
 import pytest
 
-from rlmeson import bse, channels, observables, search
+from rlmeson.meson import bse, observables, search
+from rlmeson.model import channels
 
 N_C = 3
 SIGMA = [np.array([[0, 1], [1, 0]]), np.array([[0, -1j], [1j, 0]]), np.array([[1, 0], [0, -1]])]

@@ -22,7 +22,9 @@ import h5py
 import numpy as np
 import pytest
 
-from rlmeson import cli, config, pipeline
+from rlmeson import cli
+from rlmeson.io import config
+from rlmeson.workflows import pipeline
 from conftest import run_cli
 
 MT99 = """
@@ -195,7 +197,7 @@ def test_a_result_through_an_unvalidated_route_is_marked(figure_run, light_quark
     good = s["mesons"][1]
     assert good["validated"] is True
     run = pipeline.RunResult(config=cfg, quarks={"l": q}, mesons=[], seconds=0.0)
-    from rlmeson import observables, search
+    from rlmeson.meson import observables, search
 
     n = observables.Normalised(mass_gev=0.5, amplitude=np.zeros(1), wave_function=np.zeros(1), norm_nakanishi=1.0,
                                norm_canonical=1.0, eigenvalue_slope=-1.0, decay_constant=0.1,
@@ -229,7 +231,7 @@ def test_quark_json_records_its_inputs(light_quark, tmp_path):
 
 def test_a_meson_cache_entry_without_the_spectrum_is_recomputed(figure_run, tmp_path, monkeypatch):
     """Entries written before the λ(P²) spectrum was stored must not be read as complete."""
-    from rlmeson.store import Store
+    from rlmeson.io.store import Store
 
     cfg = config.parse((figure_run[0].parent / "figure-check.toml").read_text())
     store = pipeline.store_of(cfg)

@@ -15,7 +15,7 @@ import numpy as np
 import pytest
 from matplotlib import ticker
 
-from rlmeson import plots
+from rlmeson.io import plots
 from conftest import run_cli
 
 SIGNATURE = {"png": b"\x89PNG\r\n\x1a\n", "pdf": b"%PDF", "svg": b"<?xml"}
@@ -161,7 +161,9 @@ def test_spectrum_points_are_the_leading_eigenvalues_of_the_dense_matrix(mt_hard
     """The warm-started ARPACK solves of the figure's spectrum find the three eigenvalues
     with the largest real parts (reference: scipy.linalg.eig of the dense BSE matrix on a
     tiny grid; ARPACK tolerance 1e-7)."""
-    from rlmeson import bse, channels, pipeline
+    from rlmeson.meson import bse
+    from rlmeson.model import channels
+    from rlmeson.workflows import pipeline
 
     tiny = bse.BSEGrid(order=4, n_z=4, widths=(12.0, 4.8, 10.0, 10.0))
     bs = bse.BoundState(mt_hard, channels.get("vector"), tiny, light_hard, max_mass=1.0)

@@ -14,8 +14,9 @@ import numpy as np
 import pytest
 
 from conftest import ZETA
-from rlmeson import gap, interactions, quarkplane, singularities
-from rlmeson.kernel import Kernel
+from rlmeson.quark import gap, quarkplane, singularities
+from rlmeson.model import interactions
+from rlmeson.model.kernel import Kernel
 
 
 def test_own_aaa_matches_scipy_and_finds_known_poles():

@@ -12,8 +12,8 @@ import pytest
 import xarray as xr
 
 from conftest import run_cli
-from rlmeson import scans as scan
-from rlmeson.config import ConfigError
+from rlmeson.workflows import scans as scan
+from rlmeson.io.config import ConfigError
 
 BASE = """
 name = "scan-test"
@@ -75,7 +75,7 @@ def test_scan_config_still_runs_as_a_single_config():
     part of a run's physics or hash)."""
     import tomllib
 
-    from rlmeson import config
+    from rlmeson.io import config
 
     d = tomllib.loads(BASE + "[scan]\n[[scan.axis]]\nkey = \"quarks.l.current_mass_gev\"\nvalues = [0.004]\n")
     assert config.from_dict(d).hash() == config.parse(BASE).hash()
@@ -242,7 +242,7 @@ def test_executors_give_the_same_numbers():
     import tomllib
 
     import rlmeson
-    from rlmeson import executors
+    from rlmeson.workflows import executors
 
     d = tomllib.loads(BASE + "[scan]\n[[scan.axis]]\nkey = \"quarks.l.current_mass_gev\"\nvalues = [0.004]\n")
     inproc = rlmeson.scan(d, workers=1, cache=False)

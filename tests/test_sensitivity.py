@@ -1,4 +1,4 @@
-"""Exact derivatives of meson observables (rlmeson.sensitivity) against central finite
+"""Exact derivatives of meson observables (rlmeson.workflows.sensitivity) against central finite
 differences of the same lean solves (central finite differences: common practice).
 
 Grid: Maris–Tandy as in configs/mt-pion.toml (hard cutoff, ω = 0.4 GeV, D = 0.933 GeV²,
@@ -22,7 +22,8 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from rlmeson import config, sensitivity
+from rlmeson.io import config
+from rlmeson.workflows import sensitivity
 
 D, OMEGA, M = "interaction.strength_gev2", "interaction.omega_gev", "quarks.l.current_mass_gev"
 KEYS = [D, OMEGA, M]
@@ -133,7 +134,7 @@ def test_unknown_key_and_meson_are_config_errors(cfg):
 @pytest.mark.slow
 def test_values_equal_the_pipeline_bound_state(cfg, pion):
     """The lean path computes what ``pipeline.bound_state`` does (same grid, same η)."""
-    from rlmeson import pipeline
+    from rlmeson.workflows import pipeline
 
     quarks = {"l": pipeline.solve_quark(cfg, "l", pipeline.store_of(cfg))}
     meson = next(m for m in cfg.mesons if m.name == "pion")

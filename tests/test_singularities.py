@@ -9,8 +9,8 @@ import numpy as np
 import pytest
 
 from conftest import ZETA
-from rlmeson import gap, singularities
-from rlmeson.kernel import Kernel
+from rlmeson.quark import gap, singularities
+from rlmeson.model.kernel import Kernel
 
 
 def test_free_quark_threshold_is_twice_the_mass():
@@ -41,7 +41,8 @@ def test_maris_tandy_singularity_is_a_zero_on_the_boundary_parabola(light_hard):
 
 
 def test_asking_beyond_m_max_names_it(light_hard):
-    from rlmeson import bse, channels
+    from rlmeson.meson import bse
+    from rlmeson.model import channels
 
     bs = bse.BoundState(light_hard.kernel, channels.get("vector"), bse.BSEGrid(n_z=4), light_hard,
                         continuation="direct", max_mass=1.0)
@@ -65,7 +66,9 @@ def test_shifted_solve_converges_from_the_taylor_start_beyond_m_max(light_ti):
     start is poor (relative residual of order one); the damped Newton solve must still
     converge without help from solutions at other masses (common practice: a globalised
     Newton step keeps a poor start from wandering)."""
-    from rlmeson import bse, ladder, routed
+    from rlmeson.meson import bse
+    from rlmeson.model import ladder
+    from rlmeson.quark import routed
 
     m_max, _ = singularities.max_bound_state_mass(light_ti, 0.5)
     lg = ladder.LadderGrid(bse.BSEGrid().radial(light_ti.kernel.q2_max), 16)
@@ -84,7 +87,9 @@ def test_below_m_max_the_shifted_solution_does_not_depend_on_the_start(light_ti)
     """Uniqueness of the analytic continuation: below M_max the covariant Taylor start
     and an extrapolation from solutions at smaller masses reach the same S⁻¹ (an
     independent check of convergence, not the solver's residual)."""
-    from rlmeson import bse, ladder, routed
+    from rlmeson.meson import bse
+    from rlmeson.model import ladder
+    from rlmeson.quark import routed
 
     m_max, _ = singularities.max_bound_state_mass(light_ti, 0.5)
     lg = ladder.LadderGrid(bse.BSEGrid().radial(light_ti.kernel.q2_max), 16)

@@ -1,4 +1,4 @@
-"""Tests for rlmeson.store: round trips, cache hits, corruption, atomicity, plain-h5py files."""
+"""Tests for rlmeson.io.store: round trips, cache hits, corruption, atomicity, plain-h5py files."""
 
 from __future__ import annotations
 
@@ -11,8 +11,8 @@ import h5py
 import numpy as np
 import pytest
 
-from rlmeson import store as st
-from rlmeson.store import Entry, Store, StoreError, StoreWarning
+from rlmeson.io import store as st
+from rlmeson.io.store import Entry, Store, StoreError, StoreWarning
 
 
 def sample_arrays() -> dict[str, np.ndarray]:

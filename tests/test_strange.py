@@ -32,7 +32,7 @@ import pytest
 from particle import Particle
 
 import rlmeson
-from rlmeson import pipeline
+from rlmeson.workflows import pipeline
 
 CONFIGS = Path(__file__).resolve().parents[1] / "configs"
 PDG_FK_OVER_FPI = 155.7 / 130.2   # PDG (from memory)
@@ -66,7 +66,7 @@ def ti():
 
 @pytest.mark.slow
 def test_kaon_mass_is_the_charged_kaon_mass(ti):
-    """The config's m_s was fitted (rlmeson.fit.tune_current_mass) to m_K⁺ of `particle`
+    """The config's m_s was fitted (rlmeson.workflows.fit.tune_current_mass) to m_K⁺ of `particle`
     to 1e-7 in M²: a change of the code that moves the kaon is caught here (1e-5)."""
     core, _, _ = ti("kaon")
     assert core.mass_gev == pytest.approx(_gev("K+"), rel=1e-5)

@@ -14,7 +14,8 @@ outside 3–5%: the README reports that disagreement rather than the band hiding
 import pytest
 from particle import Particle
 
-from rlmeson import config, fit, pipeline
+from rlmeson.io import config
+from rlmeson.workflows import fit, pipeline
 
 PUBLISHED = {"m": 3.74e-3, "f_pi": 0.131, "m_rho": 0.742, "f_rho": 0.207}
 TOL = {"m": 0.01, "f_pi": 0.01, "m_rho": 0.015, "f_rho": 0.02}

@@ -7,7 +7,7 @@ plain numpy (which cannot be traced by JAX).
 
 import numpy as np
 
-from rlmeson._jax import jnp
+from rlmeson.numerics._jax import jnp
 
 
 def gaussian(s, p):

@@ -30,10 +30,10 @@ from functools import lru_cache, partial
 
 import numpy as np
 
-from . import quadrature as qd
-from ._jax import jax, jnp
+from ..numerics import quadrature as qd
+from ..numerics._jax import jax, jnp
 from .channels import Channel
-from .dirac import GAMMA, slash
+from ..numerics.dirac import GAMMA, slash
 from .kernel import C_F, Kernel
 
 TERMS = ("0", "pp", "pq", "qq")
@@ -203,7 +203,7 @@ def moments(kernel: Kernel, grid: LadderGrid, n_l: int, n_s: int, block: int = 8
 def _raw_moments(kernel: Kernel, grid: LadderGrid, n_u: int, block: int, pairs=None):
     """[μ (P, Q, n_u, 4)] of ``_moments_block`` on the grid's nodes for each (form,
     jparams) of ``pairs`` (default: the kernel's own), on one set of rules."""
-    from .selfenergy import RuleSet, fine_levels
+    from ..quark.selfenergy import RuleSet, fine_levels
 
     rad = grid.radial
     pabs = np.sqrt(rad.q2)
@@ -359,7 +359,7 @@ def build(kernel: Kernel, channel: Channel, grid: LadderGrid, sign: float = -1.0
 
 
 def _build(kernel: Kernel, channel: Channel, grid: LadderGrid, sign: float) -> LadderOperator:
-    from .dirac import rest_frame_vectors
+    from ..numerics.dirac import rest_frame_vectors
 
     poly = kernel_polynomials(channel, sign)
     da, db, ds = _polynomial_degrees(poly)

@@ -29,12 +29,12 @@ from dataclasses import dataclass, field
 import numpy as np
 import scipy.sparse.linalg as spla
 
-from . import ladder
-from .channels import QUARK
-from .dirac import rest_frame_vectors
+from ..model import ladder
+from ..model.channels import QUARK
+from ..numerics.dirac import rest_frame_vectors
 from .gap import GapSolution
-from ._jax import jax, jnp
-from .kernel import C_F
+from ..numerics._jax import jax, jnp
+from ..model.kernel import C_F
 
 
 class ShiftedNotConverged(RuntimeError):
@@ -97,7 +97,7 @@ class ShiftedPropagator:
     def dressing_at(self, radial, q2, z) -> tuple[np.ndarray, np.ndarray]:
         """A (from the γ·q_T part) and B at off-node points (q², z), by Chebyshev
         interpolation in z and the panels' Lagrange interpolation in ln q²."""
-        from . import quadrature as qd
+        from ..numerics import quadrature as qd
 
         q2, z = np.broadcast_arrays(np.asarray(q2, float), np.asarray(z, float))
         n = self.z.size

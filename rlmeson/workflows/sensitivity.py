@@ -53,13 +53,15 @@ import numpy as np
 import scipy.linalg
 import scipy.sparse.linalg as spla
 
-from . import bse, channels, gap, ladder, observables, routed, search
-from . import propagators as props
-from . import selfenergy as se
-from ._jax import jax, jnp
-from .channels import QUARK
-from .config import Config, ConfigError
-from .kernel import C_F, N_C, Kernel
+from ..meson import bse, observables, search
+from ..model import channels, ladder
+from ..quark import gap, routed
+from ..quark import propagators as props
+from ..quark import selfenergy as se
+from ..numerics._jax import jax, jnp
+from ..model.channels import QUARK
+from ..io.config import Config, ConfigError
+from ..model.kernel import C_F, N_C, Kernel
 
 OBSERVABLES = ("mass_gev", "decay_constant_gev")
 
@@ -727,7 +729,7 @@ def _decay_constant_tangent(bs, ch, pt: _Point, side_pts, mass, dmass, nrm, sols
     shape = bs.shape
     W = observables.integration_weights(bs)
     pair = observables.conjugate_pairing(ch, bs.z)
-    from .dirac import rest_frame_vectors
+    from ..numerics.dirac import rest_frame_vectors
 
     qh, ph = rest_frame_vectors(bs.z)
     tr = np.einsum("mab,kimba->ki", ch.decay_projector(ph[0]), ch.basis(qh, ph))

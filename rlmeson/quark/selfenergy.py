@@ -22,9 +22,9 @@ from functools import partial
 
 import numpy as np
 
-from . import quadrature as qd
-from ._jax import jax, jnp
-from .kernel import Kernel
+from ..numerics import quadrature as qd
+from ..numerics._jax import jax, jnp
+from ..model.kernel import Kernel
 
 _PI = math.pi
 # ∫ d⁴q/(2π)⁴ = ∫ dt (q⁴/2) · 4π ∫_0^π sin²θ dθ / (2π)⁴ ; with σ = u/q² the radial factor is q²/2
@@ -90,7 +90,7 @@ def rows_with_tangents(kernel: Kernel, grid: qd.RadialGrid, p2, directions, *, n
     ``directions`` (dicts parameter name → tangent) in the interaction parameters, by
     forward-mode differentiation of g (``kernel.TangentForm``) on the same quadrature rules
     (built once; they follow ``kernel.resolution_gev`` and are held fixed)."""
-    from .kernel import TangentForm
+    from ..model.kernel import TangentForm
 
     pairs = [(kernel.form, kernel.jparams())] + [(TangentForm(kernel.form), kernel.jtangent(d)) for d in directions]
     return _rows_of(kernel, grid, p2, pairs, n_half, levels, order, block)

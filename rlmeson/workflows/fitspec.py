@@ -36,7 +36,7 @@ import importlib.util
 import math
 from dataclasses import dataclass
 
-from .config import Config, ConfigError, apply_overrides, from_dict
+from ..io.config import Config, ConfigError, apply_overrides, from_dict
 
 OBSERVABLES = ("mass_gev", "decay_constant_gev")
 DERIVATIVES = ("exact", "central")
@@ -47,8 +47,8 @@ PI_PLUS_PDGID = 211
 
 
 def exact_available() -> bool:
-    """Whether the exact derivatives (``rlmeson.sensitivity``) are part of this install."""
-    return importlib.util.find_spec("rlmeson.sensitivity") is not None
+    """Whether the exact derivatives (``rlmeson.workflows.sensitivity``) are part of this install."""
+    return importlib.util.find_spec("rlmeson.workflows.sensitivity") is not None
 
 
 def default_pion_targets(convention: str) -> dict[str, tuple[float, float]]:
@@ -267,7 +267,7 @@ def from_config_dict(d: dict, overrides=()) -> FitSpec:
     if deriv not in DERIVATIVES:
         raise ConfigError("fit.derivatives", deriv, "one of " + ", ".join(map(repr, DERIVATIVES)))
     if deriv == "exact" and not exact_available():
-        raise ConfigError("fit.derivatives", deriv, "'central' (the exact derivatives, rlmeson.sensitivity, are "
+        raise ConfigError("fit.derivatives", deriv, "'central' (the exact derivatives, rlmeson.workflows.sensitivity, are "
                           "not part of this install)")
     mi = t.get("max_iterations", 30)
     if isinstance(mi, bool) or not isinstance(mi, int) or not 1 <= mi <= 500:

@@ -1,7 +1,7 @@
 """Progress of a loop over many points (scans, fits): a bar on a terminal, one line per
 step in a log, nothing when quiet.
 
-    from rlmeson.progress import bar
+    from rlmeson.workflows.progress import bar
 
     with bar(total=20, desc="scan", quiet=False, log=lines) as b:
         for ...:

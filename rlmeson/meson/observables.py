@@ -19,8 +19,8 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from .dirac import CHARGE_C, CHARGE_C_INV, rest_frame_vectors
-from .kernel import N_C
+from ..numerics.dirac import CHARGE_C, CHARGE_C_INV, rest_frame_vectors
+from ..model.kernel import N_C
 
 CONVENTIONS = {"92": 1.0 / math.sqrt(2.0), "131": 1.0}
 CONVENTION_LABELS = {"92": "f_pi ~ 92 MeV (Gamma and f divided by sqrt 2)",
@@ -177,7 +177,7 @@ def pseudoscalar_standard_basis(bs, gamma: np.ndarray, mass: float) -> np.ndarra
     The conversion from the internal covariants is derived numerically from explicit
     matrices at each node (no hand-typed formula).  Requires M > 0.
     """
-    from .dirac import GAMMA5, sigma, slash
+    from ..numerics.dirac import GAMMA5, sigma, slash
 
     if mass <= 0:
         raise ValueError("the E, F, G, H basis needs M > 0")

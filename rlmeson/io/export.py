@@ -21,8 +21,9 @@ import json
 
 import numpy as np
 
-from . import channels, observables
-from . import quadrature as qd
+from ..model import channels
+from ..meson import observables
+from ..numerics import quadrature as qd
 from .store import atomic_path
 
 
@@ -71,8 +72,8 @@ def write_results_h5(run, path) -> None:
     summary, so another code can read it with h5py alone."""
     import h5py
 
-    from . import __version__
-    from .pipeline import kernel_of
+    from .. import __version__
+    from ..workflows.pipeline import kernel_of
 
     summ = run.summary()
     kern = kernel_of(run.config)

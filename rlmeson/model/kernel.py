@@ -59,7 +59,7 @@ class TangentForm:
     base: KernelForm
 
     def g(self, s, jparams):
-        from ._jax import jax
+        from ..numerics._jax import jax
 
         params, tangents = jparams
         return jax.jvp(lambda p: self.base.g(s, p), (params,), (tangents,))[1]
@@ -101,14 +101,14 @@ class Kernel:
                 f"integrals to {self.grid_end_gev2:g} GeV²)")
 
     def jparams(self) -> dict:
-        from ._jax import jnp  # (here, so that reading a config does not import JAX)
+        from ..numerics._jax import jnp  # (here, so that reading a config does not import JAX)
 
         return {k: jnp.asarray(float(v)) for k, v in self.params.items()}
 
     def jtangent(self, direction) -> tuple[dict, dict]:
         """(parameters, tangents) for ``TangentForm``: ``direction`` maps parameter names
         to tangent components (others 0)."""
-        from ._jax import jnp
+        from ..numerics._jax import jnp
 
         unknown = set(direction) - set(self.params)
         if unknown:

@@ -21,8 +21,8 @@ from pathlib import Path
 
 import numpy as np
 
-from . import quadrature as qd
-from .rational import Rational, evaluate
+from ..numerics import quadrature as qd
+from ..numerics.rational import Rational, evaluate
 
 
 def _open(path):

@@ -119,11 +119,13 @@ def check_with_shifted(sol: GapSolution, sing: Singularity, eta: float = 0.5, n_
     Small (≲ 0.05) confirms the singularity found with the direct continuation; of order
     one means the direct continuation produced it (possible when g(0) ≠ 0) and the true
     propagator is regular there.  None when the shifted solve does not converge there."""
-    from . import bse, ladder, routed
+    from ..numerics.grids import BSEGrid
+    from ..model import ladder
+    from . import routed
 
     m = CHECK_BEYOND * sing.max_mass(eta)
     if solver is None:
-        grid = bse.BSEGrid() if widths is None else bse.BSEGrid(widths=widths)
+        grid = BSEGrid() if widths is None else BSEGrid(widths=widths)
         solver = routed.ShiftedSolver(sol, ladder.LadderGrid(grid.radial(sol.kernel.q2_max), n_z))
     lg = solver.grid
     # reach m by continuation from 0.7 m, where the covariant Taylor start is good

@@ -19,7 +19,7 @@ from typing import Callable
 
 import numpy as np
 
-from .dirac import CHARGE_C, CHARGE_C_INV, GAMMA, GAMMA5, ONE, slash
+from ..numerics.dirac import CHARGE_C, CHARGE_C_INV, GAMMA, GAMMA5, ONE, slash
 
 
 def _transverse(qh, ph):
@@ -113,7 +113,7 @@ class Channel:
 
 @lru_cache(maxsize=32)
 def _charge_matrix(channel: "Channel", z: tuple) -> np.ndarray:
-    from .dirac import rest_frame_vectors
+    from ..numerics.dirac import rest_frame_vectors
 
     qh, ph = rest_frame_vectors(np.asarray(z))
     tm = channel.basis(-qh, ph)  # τ_i(−q̂, P̂)

@@ -293,7 +293,7 @@ def eigenvalue_spectrum_figure(mesons: list[tuple[str, MesonData]]):
 
 def _at_z(m: MesonData, zs) -> np.ndarray:
     """Components at the given z from the Chebyshev-U moments: (component, len(zs), q)."""
-    from . import quadrature as qd
+    from ..numerics import quadrature as qd
 
     u = qd.chebyshev_u(m.moments.shape[1] - 1, np.asarray(zs, dtype=float))  # (z, m)
     return np.einsum("km,imq->ikq", u, m.moments)

@@ -28,8 +28,8 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from .gap import GapSolution
-from . import rational
-from .rational import Rational, aaa  # noqa: F401  (re-exported: the fit used here)
+from ..numerics import rational
+from ..numerics.rational import Rational, aaa  # noqa: F401  (re-exported: the fit used here)
 
 #: Default half-width of the approximant's window in |p²| (GeV²): where the dynamical
 #: mass is generated and the nearest singularities lie; beyond it the functions are
@@ -106,11 +106,13 @@ def sample(sol: GapSolution, mass_gev: float, eta: float = 0.5, n_z: int = 16, g
            solver=None) -> RegionSamples:
     """Solve the shifted gap equation at bound-state mass ``mass_gev`` (reached by
     continuation from 0.6 M, where the covariant start is good)."""
-    from . import bse, ladder, routed
+    from ..numerics.grids import BSEGrid
+    from ..model import ladder
+    from . import routed
 
     t0 = time.perf_counter()
     if solver is None:
-        grid = grid or bse.BSEGrid()
+        grid = grid or BSEGrid()
         solver = routed.ShiftedSolver(sol, ladder.LadderGrid(grid.radial(sol.kernel.q2_max), n_z))
     start = solver.solve(0.6 * mass_gev, eta)
     sp = solver.solve(mass_gev, eta, guess=start)
@@ -124,7 +126,7 @@ def sample(sol: GapSolution, mass_gev: float, eta: float = 0.5, n_z: int = 16, g
 def interpolate_samples(samples: RegionSamples, s) -> tuple[np.ndarray, np.ndarray]:
     """A, B at complex s inside the sampled region by interpolation on the nodes
     (Chebyshev in z, the panels' Lagrange interpolation in ln q²)."""
-    from . import quadrature as qd
+    from ..numerics import quadrature as qd
 
     q2, z = samples.coordinates(s)
     q2, z = np.ravel(q2), np.ravel(z)
@@ -361,10 +363,12 @@ def locate(sol: GapSolution, direct_max_mass: float | None = None, eta: float = 
     If the zero found would lie inside the sampled parabola the samples are redone at 0.8
     of the mass it allows (samples beyond M_max are not trustworthy: the loop then runs
     over the singularity)."""
-    from . import bse, ladder, routed, singularities
+    from ..numerics.grids import BSEGrid
+    from ..model import ladder
+    from . import routed, singularities
 
     t0 = time.perf_counter()
-    grid = grid or bse.BSEGrid()
+    grid = grid or BSEGrid()
     solver = routed.ShiftedSolver(sol, ladder.LadderGrid(grid.radial(sol.kernel.q2_max), n_z))
     mass = region_mass_guess(sol, direct_max_mass)
     for _ in range(3):

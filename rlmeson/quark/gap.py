@@ -26,11 +26,11 @@ from functools import partial
 
 import numpy as np
 
-from . import quadrature as qd
+from ..numerics import quadrature as qd
 from . import selfenergy as se
-from ._jax import jax, jnp
-from .grids import GapGrid  # noqa: F401  (defined without JAX, for the config)
-from .kernel import N_C, Kernel, one_loop_condensate_factor
+from ..numerics._jax import jax, jnp
+from ..numerics.grids import GapGrid  # noqa: F401  (defined without JAX, for the config)
+from ..model.kernel import N_C, Kernel, one_loop_condensate_factor
 
 #: The smallest momenta at which M is evaluated directly, for M(0) by extrapolation.
 M0_PROBES_GEV2 = (1e-4, 2e-4)

@@ -27,7 +27,8 @@ import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from . import channels, grids, interactions, kernel, quadrature
+from ..model import channels, interactions, kernel
+from ..numerics import grids, quadrature
 
 NAME_RE = re.compile(r"[A-Za-z0-9][A-Za-z0-9_.-]{0,63}")
 FLAVOUR_RE = re.compile(r"[A-Za-z][A-Za-z0-9_]{0,15}")

@@ -40,7 +40,7 @@ class _LazyNumpy:
     config -- which needs the registry and the parameter ranges -- does not import JAX."""
 
     def __getattr__(self, name):
-        from ._jax import jnp as module
+        from ..numerics._jax import jnp as module
 
         return getattr(module, name)
 
@@ -221,8 +221,8 @@ def probe(name: str, params: Mapping[str, float]) -> None:
     ``interaction.model`` (one line)."""
     import numpy as np
 
-    from ._jax import jax, jnp as real_jnp
-    from .config import ConfigError
+    from ..numerics._jax import jax, jnp as real_jnp
+    from ..io.config import ConfigError
 
     def fail(what: str):
         raise ConfigError("interaction.model", name, f"a function g(s, params) of jax.numpy that {what}")

@@ -19,7 +19,9 @@ from pathlib import Path
 
 import numpy as np
 
-from . import __version__, channels, observables
+from .. import __version__
+from ..model import channels
+from ..meson import observables
 from .export import moments
 from .store import atomic_path, atomic_write_text
 
@@ -61,7 +63,7 @@ def propagator_dataset(cfg, quark, plane=None):
     ``quarkplane.QuarkPlane``, its complex region, approximants and singularities."""
     import xarray as xr
 
-    from .pipeline import kernel_of
+    from ..workflows.pipeline import kernel_of
 
     s = quark.solution
     kern = kernel_of(cfg)

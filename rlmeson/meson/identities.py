@@ -16,7 +16,7 @@ import numpy as np
 import scipy.sparse.linalg as spla
 
 from .bse import BoundState
-from .dirac import GAMMA5, rest_frame_vectors
+from ..numerics.dirac import GAMMA5, rest_frame_vectors
 
 
 def kernel_vs_gap(bs: BoundState) -> tuple[np.ndarray, np.ndarray]:

@@ -18,11 +18,13 @@ from typing import Callable
 
 import numpy as np
 
-from . import __version__
-from . import bse, channels, extrapolate, gap, observables, quarkplane, search, singularities
-from .config import Config, ConfigError, MesonConfig, meson_label
-from .kernel import N_C, Kernel
-from .store import Store
+from .. import __version__
+from ..meson import bse, extrapolate, observables, search
+from ..model import channels
+from ..quark import gap, quarkplane, singularities
+from ..io.config import Config, ConfigError, MesonConfig, meson_label
+from ..model.kernel import N_C, Kernel
+from ..io.store import Store
 
 Progress = Callable[[str], None]
 
@@ -57,13 +59,14 @@ def bse_grid_of(cfg: Config) -> bse.BSEGrid:
 
 
 def source_hash(directory) -> str:
-    """sha256 over the names and bytes of the ``.py`` files in ``directory``."""
+    """sha256 over the relative paths and bytes of the ``.py`` files in ``directory`` and
+    its subpackages."""
     import hashlib
     from pathlib import Path
 
     digest = hashlib.sha256()
-    for f in sorted(Path(directory).glob("*.py")):
-        digest.update(f.name.encode() + b"\0" + f.read_bytes() + b"\0")
+    for f in sorted(Path(directory).rglob("*.py")):
+        digest.update(f.relative_to(Path(directory)).as_posix().encode() + b"\0" + f.read_bytes() + b"\0")
     return digest.hexdigest()[:16]
 
 
@@ -73,7 +76,7 @@ def package_source_hash() -> str:
     cache keys even without a version bump."""
     from pathlib import Path
 
-    return source_hash(Path(__file__).resolve().parent)
+    return source_hash(Path(__file__).resolve().parents[1])
 
 
 def user_module_hash(model: str) -> str:
@@ -83,7 +86,7 @@ def user_module_hash(model: str) -> str:
     import inspect
     import sys
 
-    from . import interactions
+    from ..model import interactions
 
     fn = interactions.get(model).g
     module = sys.modules.get(getattr(fn, "__module__", None) or "")
@@ -529,7 +532,7 @@ def bound_state(cfg: Config, meson: MesonConfig, quarks: dict[str, QuarkResult],
         progress(f"{meson.name}: the mass at a second momentum partition (eta spread)")
         from scipy.sparse.linalg import ArpackNoConvergence
 
-        from .routed import ShiftedNotConverged
+        from ..quark.routed import ShiftedNotConverged
 
         try:
             got = eta_spread_of(bs, mass, lambda e: mass_limit(q1, q2, e))
@@ -597,7 +600,7 @@ def _spectrum(bs, mass: float, m_max: float, m_eval: float, vals, vecs) -> tuple
     or that lies beyond M_max is left out (the curve is a picture, not a result)."""
     from scipy.sparse.linalg import ArpackNoConvergence
 
-    from .routed import ShiftedNotConverged
+    from ..quark.routed import ShiftedNotConverged
 
     targets = (SPECTRUM_CHIRAL_GEV if mass == 0.0 else
                tuple(f * mass for f in SPECTRUM_FRACTIONS) + (mass + max(0.2 * mass, SPECTRUM_BEYOND_GEV),))

@@ -27,7 +27,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .dirac import slash
+from ..numerics.dirac import slash
 from .gap import GapSolution
 
 
@@ -98,7 +98,7 @@ def shifted_momenta(q2: np.ndarray, z: np.ndarray, mass: float, eta: float):
 
 def propagator_matrices(q2, z, mass, eta, plus: DressedPoints, minus: DressedPoints):
     """S(q₊), S(q₋) as 4×4 matrices on the grid (n_q, n_z, 4, 4), rest frame, q̂ = (0,0,√(1−z²),z)."""
-    from .dirac import rest_frame_vectors
+    from ..numerics.dirac import rest_frame_vectors
 
     qh, ph = rest_frame_vectors(z)  # (n_z, 4)
     q = np.sqrt(q2)[:, None, None]
@@ -128,8 +128,8 @@ def reflected(coeffs: np.ndarray) -> np.ndarray:
 
 def matrices_from_coefficients(coeffs: np.ndarray, z: np.ndarray) -> np.ndarray:
     """Σ_c s_c τ_c(q̂(z), P̂) for coefficients (4, n_z, n_q) → (n_q, n_z, 4, 4)."""
-    from .channels import QUARK
-    from .dirac import rest_frame_vectors
+    from ..model.channels import QUARK
+    from ..numerics.dirac import rest_frame_vectors
 
     qh, ph = rest_frame_vectors(z)
     t = QUARK.basis(qh, ph)[:, :, 0]  # (k, c, 4, 4)

@@ -15,14 +15,14 @@ import numpy as np
 import scipy.linalg
 import scipy.sparse.linalg as spla
 
-from . import ladder
-from . import propagators as props
-from .channels import Channel
-from .dirac import rest_frame_vectors
-from .gap import GapSolution
-from .grids import CONTINUATIONS, BSEGrid  # noqa: F401  (defined without JAX, for the config)
-from .kernel import Kernel
-from ._jax import jax, jnp
+from ..model import ladder
+from ..quark import propagators as props
+from ..model.channels import Channel
+from ..numerics.dirac import rest_frame_vectors
+from ..quark.gap import GapSolution
+from ..numerics.grids import CONTINUATIONS, BSEGrid  # noqa: F401  (defined without JAX, for the config)
+from ..model.kernel import Kernel
+from ..numerics._jax import jax, jnp
 
 
 @jax.jit
@@ -79,8 +79,8 @@ class BoundState:
             # flavour at η = 1/2 the second family is the reflection x₄ → −x₄ of the first
             # (an exact symmetry of the gap equation on a z grid symmetric about 0), so one
             # solve serves both unless ``reflect`` is False.
-            from .channels import QUARK
-            from .routed import ShiftedSolver
+            from ..model.channels import QUARK
+            from ..quark.routed import ShiftedSolver
 
             qop = quark_operator if quark_operator is not None else ladder.build(kernel, QUARK, lgrid, sign=+1.0)
             self._qop = qop

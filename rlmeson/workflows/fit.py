@@ -6,7 +6,7 @@ secant steps in m on M², which is nearly linear in m for a pseudo-Goldstone bos
 ``run_fit`` is ``rlmeson fit``: the parameters of a ``[fit]`` table (``fitspec``) moved by
 ``scipy.optimize.least_squares`` (trust region with bounds) on the residuals
 (achieved − target)/uncertainty, with the Jacobian supplied.  Derivatives come from
-``rlmeson.sensitivity.observables_with_gradient`` (exact) or, with ``derivatives =
+``rlmeson.workflows.sensitivity.observables_with_gradient`` (exact) or, with ``derivatives =
 "central"``, from ``observables_with_gradient`` here: central differences of warm-started
 evaluations.  An evaluation computes only what the targets need (the gap solution of
 each flavour involved, warm-started from the previous point; mass and normalisation of
@@ -26,7 +26,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from . import pipeline
-from .config import Config, ConfigError
+from ..io.config import Config, ConfigError
 
 
 @dataclass(frozen=True)
@@ -124,7 +124,7 @@ def _quick_quark(cfg: Config, flavour: str, warm: Warm, store, full: bool, near=
     is searched (a pseudoscalar's search is then bounded by 2.2 M(0)); with it the
     nearest singularity of a full ``pipeline.solve_quark`` at the first point (cached in
     the store) is carried along, scaled with M(0)² (it moves with the dressed mass)."""
-    from . import gap
+    from ..quark import gap
 
     kern = pipeline.kernel_of(cfg)
     grid = pipeline.gap_grid_of(cfg)
@@ -154,8 +154,8 @@ def _quick_quark(cfg: Config, flavour: str, warm: Warm, store, full: bool, near=
 
 
 def _operators(cfg: Config, channel, warm: Warm):
-    from . import ladder
-    from .channels import QUARK
+    from ..model import ladder
+    from ..model.channels import QUARK
 
     key = (cfg.interaction, cfg.kernel, cfg.bse, channel.name)
     if key in warm.operators:
@@ -177,7 +177,8 @@ def observables(cfg: Config, wanted, warm: Warm | None = None, store=None) -> tu
     """The observables ``wanted`` — (meson name, "mass_gev" | "decay_constant_gev") pairs,
     decay constants in the config's convention — of ``cfg``; returns (values, warm state,
     diagnostics)."""
-    from . import bse, channels, observables as obs, search
+    from ..meson import bse, observables as obs, search
+    from ..model import channels
 
     warm = Warm() if warm is None else warm
     names = list(dict.fromkeys(m for m, _ in wanted))
@@ -217,7 +218,7 @@ def observables(cfg: Config, wanted, warm: Warm | None = None, store=None) -> tu
 
 
 def _config_with(cfg: Config, key: str, value: float) -> Config:
-    from .config import apply_overrides, from_dict
+    from ..io.config import apply_overrides, from_dict
 
     return from_dict(apply_overrides(cfg.to_dict(), [f"{key}={float(value)!r}"]), source=cfg.source)
 
@@ -236,7 +237,7 @@ def observables_with_gradient(cfg: Config, keys, wanted, store=None, warm=None,
     """The observables ``wanted`` (see ``observables``) and their derivatives with respect
     to the config ``keys`` by central differences of warm-started evaluations (one-sided
     where a step would leave a key's allowed range); the same signature as the exact
-    ``rlmeson.sensitivity.observables_with_gradient``."""
+    ``rlmeson.workflows.sensitivity.observables_with_gradient``."""
     t0 = time.perf_counter()
     vals, warm, diag = observables(cfg, wanted, warm, store)
     jac = central_jacobian(cfg, keys, wanted, vals, warm, store, step)
@@ -324,7 +325,7 @@ class FitResult:
         return self.jacobian * self.parameters[None, :] / self.achieved[:, None]
 
     def to_json(self) -> dict:
-        from . import __version__
+        from .. import __version__
 
         sp = self.spec
         names = [p.key for p in sp.parameters]
@@ -560,7 +561,7 @@ def fitted_config_text(result: FitResult) -> str:
     fit's observables; checked to read back to the same config hash."""
     import tomllib
 
-    from .config import from_dict
+    from ..io.config import from_dict
 
     d = result.config.to_dict()
     d["description"] = (f"fitted by rlmeson fit from {result.spec.name}: "
@@ -615,8 +616,8 @@ def write_outputs(result: FitResult, out_dir) -> dict:
     import json
     from pathlib import Path
 
-    from . import plots
-    from .store import atomic_write_text
+    from ..io import plots
+    from ..io.store import atomic_write_text
 
     out = Path(out_dir)
     fj = result.to_json()
@@ -635,7 +636,7 @@ def write_outputs(result: FitResult, out_dir) -> dict:
 
 def fit(cfg, overrides=(), cache: bool = True, out=None, progress=None):
     """Fit the ``[fit]`` parameters of ``cfg`` (a path, a dict of the TOML layout, or a
-    ``rlmeson.fitspec.FitSpec``) to its targets by least squares; returns a
+    ``rlmeson.workflows.fitspec.FitSpec``) to its targets by least squares; returns a
     ``FitResult`` (``.parameters``, ``.achieved``, ``.converged``,
     ``.history``, ``.covariance()``, ``.config`` the fitted config, ``.to_json()`` what
     fit.json holds).  ``out``: also write fit.json, fitted.toml, report.txt and fit.png

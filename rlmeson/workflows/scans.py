@@ -33,7 +33,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .config import Config, ConfigError, apply_overrides, from_dict
+from ..io.config import Config, ConfigError, apply_overrides, from_dict
 
 STATUS_OK, STATUS_FAILED = "ok", "failed"
 #: Per-meson observables of summary.json gathered as variables ``<meson>_<key>``.
@@ -252,7 +252,7 @@ def _point_task(args) -> PointResult:
 
 def run(scan: Scan, workers: int | None = 1, cache: bool = True, progress=None, executor=None,
         dask: str | None = None) -> list[PointResult]:
-    """Every point, results in point order.  ``executor``: an :mod:`rlmeson.executors`
+    """Every point, results in point order.  ``executor``: an :mod:`rlmeson.workflows.executors`
     executor; else one made from ``workers`` (1: in this process; N: N worker processes;
     None: one per core) or ``dask`` (a scheduler address or ``"local"``).
     ``progress(done, total, result)`` is called as each point finishes."""
@@ -280,7 +280,7 @@ def dataset(scan: Scan, results: list[PointResult]):
     ``quark_<flavour>_<observable>``, and per point ``status``, ``message``, ``config_hash``."""
     import xarray as xr
 
-    from . import __version__
+    from .. import __version__
 
     shape = tuple(len(a.values) for a in scan.axes)
     dims = tuple(a.name for a in scan.axes)
@@ -349,7 +349,8 @@ def chiral_condensate_gev3(scan: Scan, flavour: str) -> tuple[float, float, floa
     at its renormalisation point ζ, from the quark stage (the gap equation of the base
     config at current mass 0; −⟨q̄q⟩ = Z₄ N_c ∫ tr S, ``gap.GapSolution.condensate_cbrt``)
     and that solve's Z₄."""
-    from . import gap, pipeline
+    from ..quark import gap
+    from . import pipeline
 
     cfg = from_dict(apply_overrides(scan.base, [f"quarks.{flavour}.current_mass_gev=0.0"]))
     sol = gap.solve(pipeline.kernel_of(cfg), 0.0, cfg.renormalisation_point_gev, pipeline.gap_grid_of(cfg))
@@ -371,7 +372,7 @@ def add_gmor(scan: Scan, ds):
     ratio 1 − B⁰(ζ²)/m + O(m), 8% low at m = 0.5 MeV (measured: 0.924, 0.973, 1.009, 1.050
     at m = 0.5, 1, 2, 4 MeV, translation-invariant; with m̂: 1.0071, 1.0149, 1.0303,
     1.0612, i.e. 0.9995 + 0.0155 m/MeV)."""
-    from . import observables
+    from ..meson import observables
 
     if len(scan.axes) != 1:
         return ds
@@ -411,7 +412,8 @@ def gmor_figure(scan: Scan, ds, out_dir, fmt: str = "png"):
     Dataset has no GMOR ratio."""
     from pathlib import Path
 
-    from . import observables, plots
+    from ..meson import observables
+    from ..io import plots
 
     names = [n for n in ds.data_vars if n.endswith("_gmor_ratio")]
     if not names:
@@ -487,8 +489,8 @@ class ScanResult:
         import json
         from pathlib import Path
 
-        from . import exchange, plots
-        from .store import atomic_write_text
+        from ..io import exchange, plots
+        from ..io.store import atomic_write_text
 
         out = Path(out_dir)
         exchange.write_netcdf(self.dataset, out / "scan.nc")

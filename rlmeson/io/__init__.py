@@ -1,0 +1,1 @@
+"""Edges: configs, the result store, exports, readers, figures."""
