@@ -91,7 +91,7 @@ def test_bad_meson_is_named_by_its_name_or_counted_from_one(tmp_path):
     text = LIGHT.format(mass=0.005) + '[[mesons]]\nname = "pi"\nchannel = "pseudoscalar"\n[[mesons]]\nchannel = "vector"\n'
     rc, err, jax = _main_without_jax(["run", _write(tmp_path, text)], tmp_path)
     assert rc == 2 and _one_line(err) and "mesons[2].name" in err and not jax
-    text = LIGHT.format(mass=0.005) + '[[mesons]]\nname = "pi"\nchannel = "scalar"\n'
+    text = LIGHT.format(mass=0.005) + '[[mesons]]\nname = "pi"\nchannel = "tensor"\n'
     rc, err, _ = _main_without_jax(["run", _write(tmp_path, text)], tmp_path)
     assert rc == 2 and 'mesons["pi"].channel' in err
 
