@@ -165,5 +165,5 @@ def test_store_claim_excludes_others_and_survives_sigkill(tmp_path):
     t0 = time.perf_counter()
     with st.claim("quark", "k3", waiting=told.append):
         pass
-    assert time.perf_counter() - t0 < 2.0 and len(told) == 1
+    assert time.perf_counter() - t0 < 10.0 and len(told) == 1      # released by the kill, no timeout
     assert st.get("quark", "k3") is None and not (tmp_path / "quark").exists()   # a lock is no entry

@@ -203,13 +203,16 @@ def observables(cfg: Config, wanted, warm: Warm | None = None, store=None) -> tu
         bs = bse.BoundState(kern, ch, grid, q1.solution, q2.solution if q2 is not q1 else None, eta=eta,
                             continuation=cfg.bse.continuation, max_mass=m_max, kernel_operator=kop,
                             quark_operator=qop)
+        # the leading state of the channel's charge parity where C is a symmetry (as the run)
+        parity = ch.c_parity if search.charge_symmetric(bs) else None
         previous = warm.masses.get(m.name)
         if previous is not None and previous < m_max:
-            sol = search.find_mass(bs, previous, m_max, step=0.02)
+            sol = search.find_mass(bs, previous, m_max, step=0.02, parity=parity)
         else:
-            sol = search.find_mass(bs, m.mass_guess_gev or pipeline._guess(ch.name, q1, q2, m_max), m_max)
+            sol = search.find_mass(bs, m.mass_guess_gev or pipeline._guess(ch.name, q1, q2, m_max), m_max,
+                                   parity=parity)
         warm.masses[m.name] = sol.mass_gev
-        nrm = pipeline._normalise_at(bs, search.Leading(bs), sol.mass_gev, sol.eigenvector)
+        nrm = pipeline._normalise_at(bs, search.Leading(bs, parity), sol.mass_gev, sol.eigenvector)
         got[(m.name, "mass_gev")] = sol.mass_gev
         got[(m.name, "decay_constant_gev")] = nrm.decay_constant * factor
         diag[m.name] = {"bse_evaluations": sol.evaluations, "normalisation_agreement": nrm.normalisation_agreement,
@@ -632,7 +635,7 @@ def write_outputs(result: FitResult, out_dir) -> dict:
 
 
 # ----------------------------------------------------------------------------------------
-# The Python API: ``rlmeson.fit(cfg)`` (this module, callable)
+# The Python API: ``rlmeson.fit(cfg)`` calls ``fit``
 
 def fit(cfg, overrides=(), cache: bool = True, out=None, progress=None):
     """Fit the ``[fit]`` parameters of ``cfg`` (a path, a dict of the TOML layout, or a

@@ -204,6 +204,15 @@ def _target(i: int, t, cfg: Config) -> Target:
     if obs not in OBSERVABLES:
         raise ConfigError(f"{where}.observable", obs, "one of " + ", ".join(map(repr, OBSERVABLES)))
     m = next(x for x in cfg.mesons if x.name == meson)
+    if m.excitation:
+        raise ConfigError(f"{where}.meson", meson, "a ground state (excitation = 0): a fit follows the leading "
+                          "state of the channel's charge parity")
+    if obs == "decay_constant_gev":
+        from ..model import channels
+
+        if channels.get(m.channel).decay_projector is None:
+            raise ConfigError(f"{where}.observable", obs, f"'mass_gev' (the {m.channel} channel has no decay "
+                              "constant)")
     if "value" not in t and "uncertainty" not in t:
         if m.channel != "pseudoscalar" or m.quarks[0] != m.quarks[1]:
             raise ConfigError(f"{where}.value", None, "required (defaults exist only for an equal-flavour "

@@ -989,7 +989,7 @@ def extrapolate_meson(cfg: Config, meson: MesonConfig, quarks: dict[str, QuarkRe
     accessible states) by rational continuation of its leading λ(P²), sampled spacelike
     and timelike below the limit.  ``extrapolate.NotExtrapolable`` says why not."""
     t0 = time.perf_counter()
-    if getattr(meson, "excitation", 0):
+    if meson.excitation:
         raise extrapolate.NotExtrapolable("only ground states are extrapolated (the leading eigenvalue), "
                                           f"not excitation {meson.excitation}")
     q1, q2 = quarks[meson.quarks[0]], quarks[meson.quarks[1]]
@@ -1001,12 +1001,10 @@ def extrapolate_meson(cfg: Config, meson: MesonConfig, quarks: dict[str, QuarkRe
     bs = bse.BoundState(kernel_of(cfg), ch, bse_grid_of(cfg), q1.solution,
                         q2.solution if q2 is not q1 else None, eta=eta,
                         continuation=cfg.bse.continuation, max_mass=limit)
-    # the leading state of the channel's charge parity where C is a symmetry (as the
-    # search does), read with getattr while the C-parity search is being merged
-    symmetric, restricted = getattr(search, "charge_symmetric", None), getattr(search, "eigen", None)
-    parity = getattr(ch, "c_parity", None) if symmetric is not None and symmetric(bs) else None
-    solver = (extrapolate.plain_eigen if parity is None or restricted is None else
-              (lambda b, m, k, v0, tol: restricted(b, m, k=k, v0=v0, tol=tol, parity=parity)))
+    # the leading state of the channel's charge parity where C is a symmetry (as the search)
+    parity = ch.c_parity if search.charge_symmetric(bs) else None
+    solver = (extrapolate.plain_eigen if parity is None else
+              (lambda b, m, k, v0, tol: search.eigen(b, m, k=k, v0=v0, tol=tol, parity=parity)))
     progress(f"{meson.name}: sampling lambda(P^2) below M_max = {limit:.4g} GeV to extrapolate past it")
     p2, lam = extrapolate.sample(bs, limit, eigen=solver)
     ex = extrapolate.extrapolate(p2, lam)

@@ -607,9 +607,12 @@ def _predicted_mass(wm, warm, theta):
 
 def _find(bs, meson, ch, sols, m_max, wm, warm, theta):
     pred = _predicted_mass(wm, warm, theta)
+    # the channel's charge parity where C is a symmetry, as the run; if an opposite-C state
+    # leads, the left eigenvector's check fails and the derivative falls back (CHECK_TOL)
+    parity = ch.c_parity if search.charge_symmetric(bs) else None
     if pred is not None and pred < m_max:
-        return search.find_mass(bs, pred, m_max, step=0.01, xtol=MASS_XTOL)
-    return search.find_mass(bs, _guess(meson, ch, sols, m_max), m_max, xtol=MASS_XTOL)
+        return search.find_mass(bs, pred, m_max, step=0.01, xtol=MASS_XTOL, parity=parity)
+    return search.find_mass(bs, _guess(meson, ch, sols, m_max), m_max, xtol=MASS_XTOL, parity=parity)
 
 
 def _state_of(bs, mass, vec, u, eta, dmass):
