@@ -370,6 +370,10 @@ def draw_runs(runs: list[RunData], out_dir, fmt: str = "png", cut_above_regulato
     return files
 
 
+#: Per-point labels of a scan (1/0 flags, C, n): variables of the Dataset, not figures.
+SCAN_FLAGS = ("_extrapolated", "_validated", "_c_parity", "_excitation")
+
+
 def scan_figures(ds, out_dir, fmt: str = "png") -> list[Path]:
     """One figure per observable of a scan Dataset (``scan.dataset``) against the first
     axis, a line per value of the second (if any); failed points are gaps."""
@@ -379,7 +383,8 @@ def scan_figures(ds, out_dir, fmt: str = "png") -> list[Path]:
     x = dims[0]
     files = []
     for name, var in ds.data_vars.items():
-        if name in ("status", "message", "config_hash") or not np.isfinite(var.values).any():
+        if (name in ("status", "message", "config_hash") or name.endswith(SCAN_FLAGS)
+                or not np.isfinite(var.values).any()):
             continue
         fig, ax = plt.subplots(figsize=(5.5, 4))
         if len(dims) == 1:

@@ -39,7 +39,8 @@ STATUS_OK, STATUS_FAILED = "ok", "failed"
 #: Per-meson observables of summary.json gathered as variables ``<meson>_<key>``.
 MESON_KEYS = ("mass_gev", "mass_error_gev", "decay_constant_gev", "decay_constant_error_gev",
               "normalisation_agreement", "awti_residual", "in_meson_condensate_gev2", "next_eigenvalue",
-              "eta_spread_gev")
+              "eta_spread_gev",
+              "extrapolated", "validated", "c_parity", "excitation")
 QUARK_KEYS = ("mass_function_at_zero_gev", "max_bound_state_mass_gev", "Z2", "Z4", "minus_qbarq_cbrt_gev")
 UNITS = {"gev": "GeV", "gev2": "GeV2", "gev-2": "GeV-2"}
 
@@ -331,7 +332,7 @@ def _put(data, units, name, key, value, shape, ix):
     if name not in data:
         data[name] = np.full(shape, np.nan)
         units[name] = _units(key)
-    if isinstance(value, (int, float)) and not isinstance(value, bool):
+    if isinstance(value, (int, float)):          # flags (extrapolated, validated) as 1/0
         data[name][ix] = float(value)
 
 
