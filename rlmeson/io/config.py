@@ -114,6 +114,9 @@ class MesonConfig:
     #: which state of the channel's C-parity: 0 the ground state, n the n-th above it
     #: (``search.find_excitation``); absent from the hashes when 0
     excitation: int = 0
+    #: the mass again at a second momentum partition (Poincaré covariance check,
+    #: ``eta_spread_gev``); None: for unequal flavours only
+    eta_spread: bool | None = None
 
 
 # The numerical defaults are those of the solvers' grid dataclasses (one place).
@@ -182,7 +185,8 @@ class Config:
                 "flavours": {f.name: f.current_mass_gev for f in self.flavours},
                 "mesons": {m.name: {"channel": m.channel, "quarks": list(m.quarks), "eta": m.eta,
                                     "mass_guess_gev": m.mass_guess_gev,
-                                    **({"excitation": m.excitation} if m.excitation else {})}
+                                    **({"excitation": m.excitation} if m.excitation else {}),
+                                    **({"eta_spread": m.eta_spread} if m.eta_spread is not None else {})}
                            for m in self.mesons},
                 "numerics": {"gap": dataclasses.asdict(self.gap), "bse": dataclasses.asdict(self.bse)}}
 
@@ -478,6 +482,7 @@ def _mesons(top: dict, flavours: tuple[FlavourConfig, ...]) -> tuple[MesonConfig
             eta=0.5 if eta is None and quarks[0] == quarks[1] else eta,
             mass_guess_gev=_take(m, p, "mass_guess_gev", None, _real, GUESS),
             excitation=_take(m, p, "excitation", 0, _integer, 0, MAX_EXCITATION),
+            eta_spread=_take(m, p, "eta_spread", None, _boolean),
         ))
     return tuple(out)
 

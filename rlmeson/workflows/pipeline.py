@@ -880,8 +880,8 @@ def _solve_meson(cfg: Config, meson: MesonConfig, quarks: dict[str, QuarkResult]
                  store: Store | None, progress: Progress, eta_spread: bool | None) -> MesonResult:
     t0 = time.perf_counter()
     check_mass_guess(cfg, meson, quarks)  # before the store: a warm cache must not hide it
-    if eta_spread is None:
-        eta_spread = meson.quarks[0] != meson.quarks[1]
+    if eta_spread is None:       # the meson's choice, else for unequal flavours only
+        eta_spread = meson.eta_spread if meson.eta_spread is not None else meson.quarks[0] != meson.quarks[1]
     key = stage_key(cfg, cfg.meson_key(meson) + ("e" if cfg.output.error_bar else "n") + ("s" if eta_spread else ""))
     masses = tuple(quarks[q].solution.mass_gev for q in meson.quarks)
     eta, eta_method = meson_eta(meson, quarks[meson.quarks[0]], quarks[meson.quarks[1]])
