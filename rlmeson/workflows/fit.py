@@ -431,6 +431,7 @@ def run_fit(spec, store=None, progress=None, gradient=None) -> FitResult:
             hit["jac"] = chain(theta, jk)
             state["method"] = CENTRAL_METHOD
             history[hit["record"]]["jacobian_evaluated"] = True
+            history[hit["record"]]["derivatives_method"] = [CENTRAL_METHOD]
             history[hit["record"]]["seconds"] += time.perf_counter() - t1
             return hit
         entry = {"ok": False, "values": None, "jac": None, "warm": None, "record": len(history)}
@@ -454,6 +455,9 @@ def run_fit(spec, store=None, progress=None, gradient=None) -> FitResult:
         rec = {"evaluation": len(history) + 1, "parameters": dict(zip((p.key for p in params), theta.tolist())),
                "jacobian_evaluated": entry["jac"] is not None, "ok": entry["ok"],
                "seconds": time.perf_counter() - t1}
+        if entry["jac"] is not None:         # how each derivative was obtained at this step
+            m = state["method"]
+            rec["derivatives_method"] = list(m) if isinstance(m, (list, tuple)) else [m]
         if entry["ok"]:
             rec.update(observables={t.name: float(v) for t, v in zip(spec.targets, entry["values"])},
                        residuals={t.name: float(x) for t, x in zip(spec.targets, r)}, chi2=float(np.sum(r ** 2)))
@@ -578,6 +582,12 @@ def fitted_config_text(result: FitResult) -> str:
     return text
 
 
+def _methods_used(fj: dict) -> str:
+    """The derivative methods the steps of a fit actually used (from its history)."""
+    used = sorted({str(m) for h in fj.get("history", []) for m in (h.get("derivatives_method") or [])})
+    return " and ".join(used) if used else "none"
+
+
 def report_lines(fj: dict) -> list[str]:
     """A one-screen text report of a fit (from its fit.json content)."""
     names = list(fj["parameters"])
@@ -585,7 +595,8 @@ def report_lines(fj: dict) -> list[str]:
     out = [f"fit of {fj['config']} (config hash {fj['config_hash']}, rlmeson {fj['package_version']}): "
            f"{len(names)} parameter(s) to {len(fj['targets'])} target(s)",
            f"  {state} after {fj['iterations']} iterations, {fj['evaluations']} evaluations, "
-           f"{fj['seconds']:.1f} s; chi2 = {fj['chi2']:.4g}; derivatives: {fj['derivatives']}",
+           f"{fj['seconds']:.1f} s; chi2 = {fj['chi2']:.4g}; derivatives: {fj['derivatives']} requested, "
+           f"{_methods_used(fj)} used",
            f"  {fj['status']}",
            f"  {'parameter':<30}{'start':>13}{'fitted':>15}{'± (1 sigma)':>13}   bounds"]
     for n in names:

@@ -866,18 +866,21 @@ COARSE_BRACKET = 0.01
 
 def solve_meson(cfg: Config, meson: MesonConfig, quarks: dict[str, QuarkResult],
                 store: Store | None = None, progress: Progress = _quiet,
-                eta_spread: bool | None = None) -> MesonResult:
+                eta_spread: bool | None = None, spectrum: bool = True) -> MesonResult:
     """One meson on the configured grid, plus (``output.error_bar``) a coarser grid.
     ``eta_spread``: also find the mass at a second momentum partition (``eta_spread_of``);
-    None: for unequal flavours only (where covariance is the check that matters; it costs
-    less than the mass search)."""
-    # one lock for every variant (error bar, η spread) of the meson's entry
+    None: the meson's ``eta_spread``, else for unequal flavours only (where covariance is
+    the check that matters; it costs less than the mass search).  ``spectrum`` False: no
+    λ(P²) figure data (spectrum and spacelike points, ~40% of the meson's time), for
+    scans; such an entry is stored apart, and a full entry also serves it."""
+    # one lock for every variant (error bar, η spread, spectrum) of the meson's entry
     with _claim(store, "meson", stage_key(cfg, cfg.meson_key(meson)), progress):
-        return _solve_meson(cfg, meson, quarks, store, progress, eta_spread)
+        return _solve_meson(cfg, meson, quarks, store, progress, eta_spread, spectrum)
 
 
 def _solve_meson(cfg: Config, meson: MesonConfig, quarks: dict[str, QuarkResult],
-                 store: Store | None, progress: Progress, eta_spread: bool | None) -> MesonResult:
+                 store: Store | None, progress: Progress, eta_spread: bool | None,
+                 spectrum: bool = True) -> MesonResult:
     t0 = time.perf_counter()
     check_mass_guess(cfg, meson, quarks)  # before the store: a warm cache must not hide it
     if eta_spread is None:       # the meson's choice, else for unequal flavours only
@@ -888,10 +891,13 @@ def _solve_meson(cfg: Config, meson: MesonConfig, quarks: dict[str, QuarkResult]
     common = dict(name=meson.name, channel=meson.channel, quarks=meson.quarks, key=key,
                   convention=cfg.output.decay_constant_convention, current_masses_gev=masses,
                   continuation=cfg.bse.continuation, eta=eta, eta_method=eta_method)
+    lean = key + "l"                    # the entry without the λ(P²) figure data
     if store is not None:
         hit = store.get("meson", key)
         if hit is not None and not {"spectrum_mass", "spectrum"} <= set(hit.arrays):
             hit = None   # an entry written before the λ(P²) spectrum was stored: recompute
+        if hit is None and not spectrum:
+            hit = store.get("meson", lean)
         if hit is not None:
             progress(f"{meson.name}: from cache")
             coarse = _core_from_store("coarse_", hit.arrays, hit.attrs) if "coarse_core" in hit.attrs else None
@@ -899,7 +905,7 @@ def _solve_meson(cfg: Config, meson: MesonConfig, quarks: dict[str, QuarkResult]
                                seconds=time.perf_counter() - t0, from_cache=True, **common)
     grid = bse_grid_of(cfg)
     progress(f"{meson.name}: building the {meson.channel} kernel and solving")
-    core = bound_state(cfg, meson, quarks, grid, progress, spectrum=True, eta_spread=eta_spread)
+    core = bound_state(cfg, meson, quarks, grid, progress, spectrum=spectrum, eta_spread=eta_spread)
     coarse = None
     if cfg.output.error_bar:
         progress(f"{meson.name}: second, coarser grid for the error estimate")
@@ -912,7 +918,7 @@ def _solve_meson(cfg: Config, meson: MesonConfig, quarks: dict[str, QuarkResult]
         _core_to_store("", core, arrays, attrs)
         if coarse is not None:
             _core_to_store("coarse_", coarse, arrays, attrs)
-        store.try_put("meson", key, arrays, attrs)
+        store.try_put("meson", key if spectrum else lean, arrays, attrs)
     return res
 
 
@@ -1064,7 +1070,10 @@ class RunResult:
         }
 
 
-def run(cfg: Config, store: Store | None = None, progress: Progress = _quiet) -> RunResult:
+def run(cfg: Config, store: Store | None = None, progress: Progress = _quiet,
+        spectrum: bool = True) -> RunResult:
+    """Every quark and meson of ``cfg``; ``spectrum`` False skips the λ(P²) figure data
+    (scans)."""
     t0 = time.perf_counter()
     needed = [f.name for f in cfg.flavours]
     quarks = {n: solve_quark(cfg, n, store, progress) for n in needed}
@@ -1072,7 +1081,7 @@ def run(cfg: Config, store: Store | None = None, progress: Progress = _quiet) ->
     for i, m in enumerate(cfg.mesons):
         try:
             try:
-                mesons.append(solve_meson(cfg, m, quarks, store, progress))
+                mesons.append(solve_meson(cfg, m, quarks, store, progress, spectrum=spectrum))
             except search.NoBoundState as e:   # above M_max: extrapolate, or say why not
                 progress(f"{m.name}: {e}")
                 try:
