@@ -305,29 +305,38 @@ def _claim(store: Store | None, kind: str, key: str, progress: Progress):
 
 
 def solve_quark(cfg: Config, flavour: str, store: Store | None = None,
-                progress: Progress = _quiet) -> QuarkResult:
-    """Real-axis gap equation, M(0), singularities (and condensates when chiral)."""
+                progress: Progress = _quiet, cross_check: bool = True) -> QuarkResult:
+    """Real-axis gap equation, M(0), singularities (and condensates when chiral).
+    ``cross_check`` False: no scan of the direct continuation for its zeros (a
+    cross-check of the singularity; for scans); such an entry is stored apart, and a full
+    entry also serves it."""
     with _claim(store, "quark", stage_key(cfg, cfg.quark_key(flavour)), progress):
-        return _solve_quark(cfg, flavour, store, progress)
+        return _solve_quark(cfg, flavour, store, progress, cross_check)
 
 
-def _solve_quark(cfg: Config, flavour: str, store: Store | None, progress: Progress) -> QuarkResult:
+def _solve_quark(cfg: Config, flavour: str, store: Store | None, progress: Progress,
+                 cross_check: bool = True) -> QuarkResult:
     t0 = time.perf_counter()
     key = stage_key(cfg, cfg.quark_key(flavour))
+    lean = key + "x"                    # the entry without the direct cross-check
     kern = kernel_of(cfg)
     grid = gap_grid_of(cfg)
     mass = cfg.flavour(flavour).current_mass_gev
     zeta = cfg.renormalisation_point_gev
     if store is not None:
         hit = store.get("quark", key)
+        if hit is None and not cross_check:
+            hit = store.get("quark", lean)
         if hit is not None:
             progress(f"quark {flavour}: from cache")
             return _quark_from_entry(hit, kern, grid, flavour, key, mass, zeta, t0)
     progress(f"quark {flavour}: solving the gap equation (m = {mass:g} GeV, zeta = {zeta:g} GeV)")
     sol = gap.solve(kern, mass, zeta, grid)
     m0 = sol.mass_function_at_zero()
-    progress(f"quark {flavour}: scanning the direct continuation for complex singularities (cross-check)")
-    direct_m_max, direct = singularities.max_bound_state_mass(sol, 0.5)
+    direct_m_max, direct = None, None
+    if cross_check:
+        progress(f"quark {flavour}: scanning the direct continuation for complex singularities (cross-check)")
+        direct_m_max, direct = singularities.max_bound_state_mass(sol, 0.5)
     progress(f"quark {flavour}: continuing the shifted solution analytically to locate its singularities")
     loc = quarkplane.locate(sol, None if direct is None else direct_m_max, 0.5)
     sing = loc.nearest
@@ -358,7 +367,7 @@ def _solve_quark(cfg: Config, flavour: str, store: Store | None, progress: Progr
                  "plane_holdout_error": loc.plane.holdout_error,
                  "condensate_cbrt_gev": cond, "regularisation": kern.label, "version": __version__,
                  "config_key": key, "grid": {"points": int(sol.radial.size), "edges": list(sol.radial.edges)}}
-        store.try_put("quark", key, _quark_arrays(sol), attrs)
+        store.try_put("quark", key if cross_check else lean, _quark_arrays(sol), attrs)
     return res
 
 
@@ -1071,17 +1080,18 @@ class RunResult:
 
 
 def run(cfg: Config, store: Store | None = None, progress: Progress = _quiet,
-        spectrum: bool = True) -> RunResult:
-    """Every quark and meson of ``cfg``; ``spectrum`` False skips the λ(P²) figure data
-    (scans)."""
+        lean: bool = False) -> RunResult:
+    """Every quark and meson of ``cfg``; ``lean`` (scans): without the λ(P²) figure data
+    and the direct continuation's cross-check of the singularity (the results are the same;
+    those diagnostics are absent from the summary)."""
     t0 = time.perf_counter()
     needed = [f.name for f in cfg.flavours]
-    quarks = {n: solve_quark(cfg, n, store, progress) for n in needed}
+    quarks = {n: solve_quark(cfg, n, store, progress, cross_check=not lean) for n in needed}
     mesons, beyond = [], []
     for i, m in enumerate(cfg.mesons):
         try:
             try:
-                mesons.append(solve_meson(cfg, m, quarks, store, progress, spectrum=spectrum))
+                mesons.append(solve_meson(cfg, m, quarks, store, progress, spectrum=not lean))
             except search.NoBoundState as e:   # above M_max: extrapolate, or say why not
                 progress(f"{m.name}: {e}")
                 try:

@@ -224,7 +224,7 @@ def run_point(scan: Scan, point, cache: bool = True, index: int | None = None) -
     cfg = scan.config_at(point, scan.error_bar_at(index))
     try:
         store = pipeline.store_of(cfg, cache)
-        summ = pipeline.run(cfg, store, spectrum=False).summary()     # no λ(P²) figure data per point
+        summ = pipeline.run(cfg, store, lean=True).summary()     # no figure data, no direct cross-check
         computed = tuple([f"quark {f}" for f, q in summ["quarks"].items() if not q.get("from_cache")]
                          + [m["name"] for m in summ["mesons"] if not m.get("from_cache")])
         return PointResult(tuple(point), cfg.hash(), STATUS_OK, "", summ, time.perf_counter() - t0,
