@@ -622,6 +622,27 @@ def apply_overrides(d: dict, overrides) -> dict:
     return out
 
 
+def read_toml(path) -> dict:
+    """The TOML table of a config file (UTF-8, a byte-order mark allowed) as a dict, with a
+    relative ``[output] cache_dir`` made relative to the file's directory (as ``load``
+    does); one-line ConfigErrors for an unreadable or invalid file.  For the workflow
+    readers (``[scan]``, ``[fit]``) that validate the dict themselves."""
+    try:
+        d = tomllib.loads(Path(path).read_text(encoding="utf-8-sig"))
+    except UnicodeDecodeError:
+        raise ConfigError("<file>", str(path), "a UTF-8 text file") from None
+    except OSError as e:
+        raise ConfigError("<file>", str(path), f"a readable TOML file ({e.strerror or type(e).__name__})") from None
+    except (ValueError, RecursionError) as e:
+        raise ConfigError("<file>", str(path), f"valid TOML ({e})") from None
+    out = d.get("output")
+    if isinstance(out, dict) and isinstance(out.get("cache_dir"), str):
+        where = Path(out["cache_dir"]).expanduser()
+        if not where.is_absolute():
+            d["output"] = {**out, "cache_dir": str(Path(path).resolve().parent / where)}
+    return d
+
+
 def load(path, overrides=()) -> Config:
     """A validated Config from a TOML file (a UTF-8 byte-order mark is allowed), with
     ``KEY=VALUE`` overrides (``apply_overrides``) applied before validation.

@@ -289,22 +289,7 @@ def from_config_dict(d: dict, overrides=()) -> FitSpec:
 
 
 def load(path, overrides=()) -> FitSpec:
-    import tomllib
-    from pathlib import Path
+    """A fit from a config file (a relative cache_dir is relative to the file)."""
+    from ..io.config import read_toml
 
-    try:
-        d = tomllib.loads(Path(path).read_text(encoding="utf-8-sig"))
-    except OSError as e:
-        raise ConfigError("<file>", str(path), f"a readable TOML file ({e.strerror or type(e).__name__})") from None
-    except ValueError as e:
-        raise ConfigError("<file>", str(path), f"valid TOML ({e})") from None
-    spec = from_config_dict(d, overrides)
-    cache = spec.base.get("output", {}).get("cache_dir") if isinstance(spec.base.get("output"), dict) else None
-    if isinstance(cache, str):
-        where = Path(cache).expanduser()
-        if not where.is_absolute():
-            base = dict(spec.base)
-            base["output"] = {**base["output"], "cache_dir": str(Path(path).resolve().parent / where)}
-            spec = FitSpec(base=base, parameters=spec.parameters, targets=spec.targets, derivatives=spec.derivatives,
-                           max_iterations=spec.max_iterations, name=spec.name, convention=spec.convention)
-    return spec
+    return from_config_dict(read_toml(path), overrides)

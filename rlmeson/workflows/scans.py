@@ -177,16 +177,10 @@ def from_config_dict(d: dict, overrides=()) -> Scan:
 
 
 def load(path, overrides=()) -> Scan:
-    import tomllib
-    from pathlib import Path
+    """A scan from a config file (a relative cache_dir is relative to the file)."""
+    from ..io.config import read_toml
 
-    try:
-        d = tomllib.loads(Path(path).read_text(encoding="utf-8-sig"))
-    except OSError as e:
-        raise ConfigError("<file>", str(path), f"a readable TOML file ({e.strerror or type(e).__name__})") from None
-    except ValueError as e:
-        raise ConfigError("<file>", str(path), f"valid TOML ({e})") from None
-    return from_config_dict(d, overrides)
+    return from_config_dict(read_toml(path), overrides)
 
 
 # ----------------------------------------------------------------------------------------
