@@ -50,8 +50,6 @@ def scan(cfg, workers: int | None = 1, dask: str | None = None, cache: bool = Tr
     the axes, ``.results`` every point with its status, ``.failed``).  ``workers``: 1 in
     this process, N worker processes, None one per core; ``dask``: a scheduler address or
     ``"local"``.  ``out``: also write scan.nc, scan.json and the figures there."""
-    from pathlib import Path
-
     from .workflows import scans as _scan
 
     if isinstance(cfg, dict):
@@ -60,9 +58,12 @@ def scan(cfg, workers: int | None = 1, dask: str | None = None, cache: bool = Tr
         sc = cfg
     else:
         sc = _scan.load(cfg, overrides)
+    if out is not None:                    # the destination is checked before the work
+        from .io.store import writable_directory
+
+        out = writable_directory(out)
     res = _scan.execute(sc, workers=workers, dask=dask, cache=cache, progress=progress)
     if out is not None:
-        Path(out).mkdir(parents=True, exist_ok=True)
         res.write(out)
     return res
 

@@ -4,6 +4,7 @@ file and recorded in the config hash (behaviour of our own interface; the physic
 checked elsewhere)."""
 
 import json
+from pathlib import Path
 
 import pytest
 
@@ -78,3 +79,18 @@ def test_run_directory_keeps_config_manifest_and_log(figure_run):
     assert man["command"][:2] == ["rlmeson", "run"]
     log = (run_dir / "run.log").read_text().splitlines()
     assert log and all(line.startswith("[") for line in log)
+
+
+@pytest.mark.parametrize("call", ["fit", "scan"])
+def test_api_checks_the_destination_before_the_work(tmp_path, call):
+    """``out`` that is an existing file: a one-line ValueError at once, before any solve
+    (common practice: check destinations before the long work)."""
+    import time
+
+    blocker = tmp_path / "taken"
+    blocker.write_text("a file, not a directory")
+    cfg = Path(__file__).resolve().parents[1] / "configs" / ("mt-fit.toml" if call == "fit" else "demo-scan.toml")
+    t0 = time.perf_counter()
+    with pytest.raises(ValueError, match="out = .*taken.*a directory"):
+        getattr(rlmeson, call)(cfg, out=blocker)
+    assert time.perf_counter() - t0 < 5.0          # no solve ran (a solve takes longer)

@@ -567,3 +567,18 @@ def _discard(path: Path, identity: tuple, exc: Exception) -> None:
         action = "left in place (replaced concurrently)"
     warnings.warn(f"invalid cache entry {path} {action}; it will be recomputed ({reason})",
                   StoreWarning, stacklevel=3)  # -> the caller of get()
+
+
+def writable_directory(out) -> Path:
+    """``out`` as an existing, writable directory (created if absent), checked before the
+    long work that will write into it; a one-line ValueError otherwise."""
+    d = Path(out).expanduser()
+    if d.exists() and not d.is_dir():
+        raise ValueError(f"out = {str(d)!r}: a directory (this is an existing file)")
+    try:
+        d.mkdir(parents=True, exist_ok=True)
+    except OSError as e:
+        raise ValueError(f"out = {str(d)!r}: a directory that can be created ({e.strerror or e})") from None
+    if not os.access(d, os.W_OK):
+        raise ValueError(f"out = {str(d)!r}: a writable directory")
+    return d

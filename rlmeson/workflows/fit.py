@@ -655,8 +655,6 @@ def fit(cfg, overrides=(), cache: bool = True, out=None, progress=None):
     ``.history``, ``.covariance()``, ``.config`` the fitted config, ``.to_json()`` what
     fit.json holds).  ``out``: also write fit.json, fitted.toml, report.txt and fit.png
     there.  ``progress``: called with one line per evaluation."""
-    from pathlib import Path
-
     from . import fitspec as _spec
 
     if isinstance(cfg, dict):
@@ -665,8 +663,11 @@ def fit(cfg, overrides=(), cache: bool = True, out=None, progress=None):
         spec = cfg
     else:
         spec = _spec.load(cfg, overrides)
+    if out is not None:                    # the destination is checked before the work
+        from ..io.store import writable_directory
+
+        out = writable_directory(out)
     result = run_fit(spec, pipeline.store_of(spec.config_at(spec.start), cache), progress)
     if out is not None:
-        Path(out).mkdir(parents=True, exist_ok=True)
         write_outputs(result, out)
     return result
