@@ -136,8 +136,9 @@ def _progress(quiet: bool, log: list | None = None):
     return say
 
 
-def _manifest(cfg, result, argv) -> dict:
-    """What produced a run: config hash, package version, platform, timings, git commit."""
+def _provenance(argv) -> dict:
+    """What produced an output directory: package version, command, time, git commit,
+    platform (the shared part of every manifest.json: run, fit, scan)."""
     import platform
     import subprocess
     from datetime import datetime, timezone
@@ -163,13 +164,20 @@ def _manifest(cfg, result, argv) -> dict:
     except (OSError, subprocess.SubprocessError):
         pass
     return {
-        "package": "rlmeson", "package_version": __version__, "config": cfg.name, "config_hash": cfg.hash(),
+        "package": "rlmeson", "package_version": __version__,
         "command": ["rlmeson", *map(str, argv)] if argv is not None else None,
         "created_utc": datetime.now(timezone.utc).isoformat(timespec="seconds"),
         "git_commit": commit,
         "platform": {"python": platform.python_version(), "machine": platform.machine(),
                      "system": platform.system(), **{p: version(p) for p in ("numpy", "scipy", "jax", "h5py",
                                                                             "xarray", "h5netcdf")}},
+    }
+
+
+def _manifest(cfg, result, argv) -> dict:
+    """What produced a run: config hash, package version, platform, timings, git commit."""
+    return {
+        **_provenance(argv), "config": cfg.name, "config_hash": cfg.hash(),
         "timings_seconds": {"total": result.seconds,
                             "quarks": {n: q.seconds for n, q in result.quarks.items()},
                             "mesons": {m.name: m.seconds for m in [*result.mesons, *result.extrapolated]}},
@@ -444,6 +452,9 @@ def cmd_scan(args) -> int:
     from .io.store import atomic_write_text
 
     res.write(out, {"command": ["rlmeson", *map(str, args.argv)], "package_version": __version__})
+    atomic_write_text(out / "manifest.json", json.dumps(
+        {**_provenance(getattr(args, "argv", None)), "config": sc.base.get("name"),
+         "timings_seconds": {"total": getattr(res, "seconds", None)}}, indent=2, allow_nan=False, default=str) + "\n")
     atomic_write_text(out / "run.log", "\n".join(log) + "\n")
     _check_terminated()
     _move_into_place(out, final)
@@ -483,6 +494,9 @@ def cmd_fit(args) -> int:
         except fit.FitFailed as e:
             raise RuntimeError(str(e)) from None
     fj = fit.write_outputs(result, out)
+    atomic_write_text(out / "manifest.json", json.dumps(
+        {**_provenance(getattr(args, "argv", None)), "config": fj.get("config"), "config_hash": fj.get("config_hash"),
+         "timings_seconds": {"total": result.seconds}}, indent=2, allow_nan=False) + "\n")
     atomic_write_text(out / "fit.log", "\n".join(log) + "\n")
     _check_terminated()
     _move_into_place(out, final)

@@ -212,6 +212,10 @@ def test_fit_json_contents(closure):
     for key in ("parameters", "targets", "converged", "iterations", "sensitivities", "parameter_uncertainties",
                 "correlation", "history", "config_hash", "package_version"):
         assert key in fj
+    man = json.loads((out / "manifest.json").read_text())       # provenance, as a run directory's
+    assert man["package_version"] == fj["package_version"] and man["config_hash"] == fj["config_hash"]
+    assert "platform" in man and man["command"][:2] == ["rlmeson", "fit"]
+    assert all(h["derivatives_method"] for h in fj["history"] if h["jacobian_evaluated"])
     assert fj["targets"]["pion.mass_gev"]["target"] == m_pi
     assert fj["targets"]["pion.mass_gev"]["achieved"] == pytest.approx(m_pi, rel=1e-7)
     assert fj["targets"]["pion.decay_constant_gev"]["achieved"] == pytest.approx(f_pi, rel=1e-6)

@@ -106,7 +106,10 @@ values = [0.002, 0.004, 0.008]
     ratio = m**2 / mq
     assert ratio.max() / ratio.min() < 1.10
     assert ds["pion_mass_gev"].attrs["units"] == "GeV"
+    assert list(ds["pion_extrapolated"].values) == [0, 0, 0] and list(ds["pion_c_parity"].values) == [1, 1, 1]
     ds.close()
+    man = json.loads((tmp_path / "s" / "manifest.json").read_text())     # provenance, as a run's
+    assert man["command"][:2] == ["rlmeson", "scan"] and "platform" in man and man["package_version"]
     # the store is the journal: a second run recomputes nothing
     code, out, err = run_cli(["scan", cfg, "--workers", 1, "--out", tmp_path / "s2"])
     assert code == 0
