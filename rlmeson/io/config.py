@@ -352,6 +352,25 @@ def _join(prefix: str, name) -> str:
     return f"{prefix}.{name}" if prefix else str(name)
 
 
+def finite_number(key, v) -> float:
+    """A finite number (int or float, not bool) for the workflow tables ([fit], [scan])."""
+    if isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(v):
+        raise ConfigError(key, v, "a finite number")
+    return float(v)
+
+
+def entry_table(where: str, t, allowed: tuple[str, ...], what: str) -> dict:
+    """One ``[[...]]`` entry of a workflow table: a table (``what`` says of what) with no
+    key outside ``allowed``; the first unknown key is named."""
+    if not isinstance(t, dict):
+        raise ConfigError(where, t, what)
+    unknown = set(t) - set(allowed)
+    if unknown:
+        k = sorted(unknown)[0]
+        raise ConfigError(f"{where}.{k}", t[k], "unknown key; allowed: " + ", ".join(allowed))
+    return t
+
+
 def _table(value, key: str, allowed) -> dict:
     if not isinstance(value, dict):
         raise ConfigError(key or "<config>", value, "a table")

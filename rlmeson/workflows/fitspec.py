@@ -36,7 +36,7 @@ import importlib.util
 import math
 from dataclasses import dataclass
 
-from ..io.config import Config, ConfigError, apply_overrides, from_dict
+from ..io.config import Config, ConfigError, apply_overrides, entry_table, finite_number, from_dict
 
 OBSERVABLES = ("mass_gev", "decay_constant_gev")
 DERIVATIVES = ("exact", "central")
@@ -127,11 +127,6 @@ class FitSpec:
         return tuple(k for p in self.parameters for k in p.keys)
 
 
-def _number(key, v):
-    if isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(v):
-        raise ConfigError(key, v, "a finite number")
-    return float(v)
-
 
 def _value_of(cfg: Config, key: str):
     """The config's value of a fittable key, or None when the key is not fittable."""
@@ -151,22 +146,17 @@ def _fittable(cfg: Config) -> str:
 
 def _parameter(i: int, t, cfg: Config) -> Parameter:
     where = f"fit.parameter[{i + 1}]"
-    if not isinstance(t, dict):
-        raise ConfigError(where, t, "a table with key and bounds")
-    unknown = set(t) - {"key", "bounds", "start", "linked"}
-    if unknown:
-        k = sorted(unknown)[0]
-        raise ConfigError(f"{where}.{k}", t[k], "unknown key; allowed: key, bounds, start, linked")
+    entry_table(where, t, ("key", "bounds", "start", "linked"), "a table with key and bounds")
     key = t.get("key")
     if not isinstance(key, str) or _value_of(cfg, key) is None:
         raise ConfigError(f"{where}.key", key, _fittable(cfg))
     b = t.get("bounds")
     if not isinstance(b, list) or len(b) != 2:
         raise ConfigError(f"{where}.bounds", b, "[lower, upper], two numbers")
-    lo, hi = _number(f"{where}.bounds[1]", b[0]), _number(f"{where}.bounds[2]", b[1])
+    lo, hi = finite_number(f"{where}.bounds[1]", b[0]), finite_number(f"{where}.bounds[2]", b[1])
     if not lo < hi:
         raise ConfigError(f"{where}.bounds", b, "lower < upper")
-    start = _number(f"{where}.start", t["start"]) if "start" in t else float(_value_of(cfg, key))
+    start = finite_number(f"{where}.start", t["start"]) if "start" in t else float(_value_of(cfg, key))
     if not lo <= start <= hi:
         raise ConfigError(f"{where}.start" if "start" in t else key, start,
                           f"a starting value within {where}.bounds = [{lo:g}, {hi:g}]")
@@ -179,7 +169,7 @@ def _parameter(i: int, t, cfg: Config) -> Parameter:
         lk = linked["key"]
         if not isinstance(lk, str) or _value_of(cfg, lk) is None or lk == key:
             raise ConfigError(f"{where}.linked.key", lk, "another " + _fittable(cfg))
-        lp = (_number(f"{where}.linked.product", linked["product"]) if "product" in linked
+        lp = (finite_number(f"{where}.linked.product", linked["product"]) if "product" in linked
               else float(_value_of(cfg, key)) * float(_value_of(cfg, lk)))
         if lp == 0 or lo <= 0 <= hi:
             raise ConfigError(f"{where}.bounds" if lp != 0 else f"{where}.linked.product", b if lp != 0 else lp,
@@ -189,12 +179,8 @@ def _parameter(i: int, t, cfg: Config) -> Parameter:
 
 def _target(i: int, t, cfg: Config) -> Target:
     where = f"fit.target[{i + 1}]"
-    if not isinstance(t, dict):
-        raise ConfigError(where, t, "a table with meson, observable, value and uncertainty")
-    unknown = set(t) - {"meson", "observable", "value", "uncertainty"}
-    if unknown:
-        k = sorted(unknown)[0]
-        raise ConfigError(f"{where}.{k}", t[k], "unknown key; allowed: meson, observable, value, uncertainty")
+    entry_table(where, t, ("meson", "observable", "value", "uncertainty"),
+                "a table with meson, observable, value and uncertainty")
     names = [m.name for m in cfg.mesons]
     meson = t.get("meson")
     if meson not in names:
@@ -223,10 +209,10 @@ def _target(i: int, t, cfg: Config) -> Target:
         missing = "value" if "value" not in t else "uncertainty"
         raise ConfigError(f"{where}.{missing}", None, "required together with "
                           + ("uncertainty" if missing == "value" else "value"))
-    v = _number(f"{where}.value", t["value"])
+    v = finite_number(f"{where}.value", t["value"])
     if not v > 0:
         raise ConfigError(f"{where}.value", t["value"], "a positive number (GeV)")
-    u = _number(f"{where}.uncertainty", t["uncertainty"])
+    u = finite_number(f"{where}.uncertainty", t["uncertainty"])
     if not u > 0:
         raise ConfigError(f"{where}.uncertainty", t["uncertainty"], "a positive number (GeV)")
     return Target(meson, obs, v, u, "config")

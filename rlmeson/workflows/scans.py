@@ -33,7 +33,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..io.config import Config, ConfigError, apply_overrides, from_dict
+from ..io.config import Config, ConfigError, apply_overrides, entry_table, finite_number, from_dict
 
 STATUS_OK, STATUS_FAILED = "ok", "failed"
 #: Per-meson observables of summary.json gathered as variables ``<meson>_<key>``.
@@ -87,20 +87,10 @@ class Scan:
         return from_dict(d, source=f"scan point {dict(zip((a.key for a in self.axes), point))}")
 
 
-def _number(key, v):
-    if isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(v):
-        raise ConfigError(key, v, "a finite number")
-    return float(v)
-
 
 def _axis(i: int, t) -> Axis:
     where = f"scan.axis[{i + 1}]"
-    if not isinstance(t, dict):
-        raise ConfigError(where, t, "a table with key and values or range")
-    unknown = set(t) - {"key", "values", "range", "linked"}
-    if unknown:
-        k = sorted(unknown)[0]
-        raise ConfigError(f"{where}.{k}", t[k], "unknown key; allowed: key, values, range, linked")
+    entry_table(where, t, ("key", "values", "range", "linked"), "a table with key and values or range")
     key = t.get("key")
     if not isinstance(key, str) or not key or key.startswith("scan"):
         raise ConfigError(f"{where}.key", key, "a dotted config key, e.g. quarks.l.current_mass_gev")
@@ -110,13 +100,13 @@ def _axis(i: int, t) -> Axis:
         vals = t["values"]
         if not isinstance(vals, list) or not vals:
             raise ConfigError(f"{where}.values", vals, "a non-empty list of numbers")
-        values = tuple(_number(f"{where}.values", v) for v in vals)
+        values = tuple(finite_number(f"{where}.values", v) for v in vals)
     else:
         r = t["range"]
         if not isinstance(r, dict) or set(r) - {"start", "stop", "points", "spacing"} or \
                 not {"start", "stop", "points"} <= set(r):
             raise ConfigError(f"{where}.range", r, "{ start, stop, points, spacing = \"linear\" or \"log\" }")
-        a, b = _number(f"{where}.range.start", r["start"]), _number(f"{where}.range.stop", r["stop"])
+        a, b = finite_number(f"{where}.range.start", r["start"]), finite_number(f"{where}.range.stop", r["stop"])
         n = r["points"]
         if isinstance(n, bool) or not isinstance(n, int) or not 1 <= n <= 1000:
             raise ConfigError(f"{where}.range.points", n, "an integer from 1 to 1000")
@@ -134,7 +124,7 @@ def _axis(i: int, t) -> Axis:
         if not isinstance(linked, dict) or set(linked) != {"key", "product"} or not isinstance(linked["key"], str):
             raise ConfigError(f"{where}.linked", linked, "{ key = \"<config key>\", product = <number> } "
                                                          "(linked value = product / axis value)")
-        lk, lp = linked["key"], _number(f"{where}.linked.product", linked["product"])
+        lk, lp = linked["key"], finite_number(f"{where}.linked.product", linked["product"])
         if any(v == 0 for v in values):
             raise ConfigError(f"{where}.values", list(values), "non-zero values on a linked axis")
     return Axis(key=key, values=values, linked_key=lk, linked_product=lp)
