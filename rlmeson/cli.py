@@ -57,15 +57,13 @@ def _parser() -> argparse.ArgumentParser:
     q.add_argument("--json", action="store_true", help="print one JSON object on stdout")
     q.add_argument("--plot", metavar="FILE", help="draw M(p²) and Z(p²) (format from the suffix: .png, .pdf, .svg)")
     q.add_argument("--no-cache", action="store_true", help="neither read nor write the result cache")
-    q.add_argument("--set", action="append", default=[], metavar="KEY=VALUE",
-                   help="override a config key (dotted, e.g. interaction.omega_gev=0.45); repeatable")
+    _add_set(q, "override a config key (dotted, e.g. interaction.omega_gev=0.45); repeatable")
     r = sub.add_parser("run", help="solve the quarks and every meson of the config, write outputs")
     r.add_argument("config")
     r.add_argument("--out", metavar="DIR", help="output directory (default runs/<name>-<hash>)")
     r.add_argument("--no-cache", action="store_true")
     r.add_argument("--quiet", action="store_true", help="no progress lines")
-    r.add_argument("--set", action="append", default=[], metavar="KEY=VALUE",
-                   help="override a config key (dotted, e.g. interaction.omega_gev=0.45); repeatable")
+    _add_set(r, "override a config key (dotted, e.g. interaction.omega_gev=0.45); repeatable")
     g = sub.add_parser("plot", help="redraw the figures of runs from their results.h5 (overlaid if several)")
     g.add_argument("dirs", nargs="+", metavar="DIR", help="run directories written by 'rlmeson run'")
     g.add_argument("--out", metavar="DIR", help="where to write the figures (default: the run directory; "
@@ -85,8 +83,7 @@ def _parser() -> argparse.ArgumentParser:
     e.add_argument("--flavour", help="only this flavour's propagator (default: every flavour)")
     e.add_argument("--no-cache", action="store_true")
     e.add_argument("--quiet", action="store_true")
-    e.add_argument("--set", action="append", default=[], metavar="KEY=VALUE",
-                   help="override a config key (dotted, e.g. interaction.omega_gev=0.45); repeatable")
+    _add_set(e, "override a config key (dotted, e.g. interaction.omega_gev=0.45); repeatable")
     c = sub.add_parser("scan", help="run the config over the axes of its [scan] table")
     c.add_argument("config")
     c.add_argument("--out", metavar="DIR", help="output directory (default runs/<name>-scan-<hash>)")
@@ -97,18 +94,20 @@ def _parser() -> argparse.ArgumentParser:
                                                      "or 'local' for a LocalCluster (needs rlmeson[dask])")
     c.add_argument("--no-cache", action="store_true")
     c.add_argument("--quiet", action="store_true")
-    c.add_argument("--set", action="append", default=[], metavar="KEY=VALUE",
-                   help="override a config key of every point; repeatable")
+    _add_set(c, "override a config key of every point; repeatable")
     f = sub.add_parser("fit", help="fit the parameters of the config's [fit] table to its targets")
     f.add_argument("config")
     f.add_argument("--out", metavar="DIR", help="output directory (default runs/<name>-fit-<hash>)")
     f.add_argument("--no-cache", action="store_true")
     f.add_argument("--quiet", action="store_true", help="no progress lines")
-    f.add_argument("--set", action="append", default=[], metavar="KEY=VALUE",
-                   help="override a config key (dotted, e.g. fit.max_iterations=10); repeatable")
-    w = sub.add_parser("show", help="print the summary of a run or scan directory")
+    _add_set(f, "override a config key (dotted, e.g. fit.max_iterations=10); repeatable")
+    w = sub.add_parser("show", help="print the summary of a run, fit or scan directory")
     w.add_argument("dir", metavar="DIR")
     return p
+
+
+def _add_set(parser, help_text: str) -> None:
+    parser.add_argument("--set", action="append", default=[], metavar="KEY=VALUE", help=help_text)
 
 
 def _positive_gev(text: str) -> float:
