@@ -88,6 +88,9 @@ BAD = {
     "bad derivatives": (FIT.replace("[fit]\n", "[fit]\nderivatives = \"forward\"\n") + TWO_TARGETS,
                         "fit.derivatives"),
     "no [fit] table": ("", "fit"),
+    "bad convention": (FIT + _target("pion", "mass_gev", 0.14, 0.01)
+                       + _target("pion", "decay_constant_gev", 0.13, 0.001) + "convention = 100\n",
+                       "fit.target[2].convention"),
     "decay constant of a channel without one": (
         FIT + '[[mesons]]\nname = "sigma"\nchannel = "scalar"\n' + _target("sigma", "decay_constant_gev", 0.1, 0.01)
         + _target("pion", "mass_gev", 0.14, 0.01), "fit.target[1].observable"),
@@ -133,6 +136,19 @@ def test_pion_defaults_from_pdg():
         assert t["decay_constant_gev"].value == pytest.approx(0.1302 * k, rel=1e-12)
         assert t["decay_constant_gev"].uncertainty == pytest.approx(0.0012 * k, rel=1e-12)
     # 92 MeV convention: 0.1302/√2 = 0.0921 ± 0.0008 GeV as quoted (PDG, from memory)
+
+
+def test_decay_constant_target_in_a_stated_convention():
+    """A target given with ``convention = 131`` is converted into the config's convention:
+    f_131 = √2 f_92 (the two conventions differ by √2 in Γ and f: common practice)."""
+    from rlmeson.workflows import fitspec
+
+    d = tomllib.loads(SMALL + FIT + _target("pion", "mass_gev", 0.138, 0.001)
+                      + _target("pion", "decay_constant_gev", 0.131, 0.0011) + "convention = 131\n")
+    for conv, k in (("92", 1 / math.sqrt(2)), ("131", 1.0)):
+        d["output"]["decay_constant_convention"] = conv
+        t = fitspec.from_config_dict(d).targets[1]
+        assert t.value == pytest.approx(0.131 * k, rel=1e-14) and t.uncertainty == pytest.approx(0.0011 * k)
 
 
 def test_linked_parameter_follows_at_fixed_product():

@@ -33,7 +33,6 @@ pseudoscalar with neither ``value`` nor ``uncertainty`` takes the same default.
 from __future__ import annotations
 
 import importlib.util
-import math
 from dataclasses import dataclass
 
 from ..io.config import Config, ConfigError, apply_overrides, entry_table, finite_number, from_dict
@@ -58,7 +57,9 @@ def default_pion_targets(convention: str) -> dict[str, tuple[float, float]]:
 
     p = Particle.from_pdgid(PI_PLUS_PDGID)
     mass = (p.mass / 1e3, max(p.mass_upper or 0.0, p.mass_lower or 0.0) / 1e3)   # MeV -> GeV
-    k = 1.0 / math.sqrt(2.0) if convention == "92" else 1.0
+    from ..meson.observables import CONVENTIONS
+
+    k = CONVENTIONS[convention] / CONVENTIONS["131"]
     return {"mass_gev": mass, "decay_constant_gev": (F_PI_SQRT2_GEV * k, F_PI_SQRT2_ERROR_GEV * k)}
 
 
@@ -179,7 +180,7 @@ def _parameter(i: int, t, cfg: Config) -> Parameter:
 
 def _target(i: int, t, cfg: Config) -> Target:
     where = f"fit.target[{i + 1}]"
-    entry_table(where, t, ("meson", "observable", "value", "uncertainty"),
+    entry_table(where, t, ("meson", "observable", "value", "uncertainty", "convention"),
                 "a table with meson, observable, value and uncertainty")
     names = [m.name for m in cfg.mesons]
     meson = t.get("meson")
@@ -215,7 +216,18 @@ def _target(i: int, t, cfg: Config) -> Target:
     u = finite_number(f"{where}.uncertainty", t["uncertainty"])
     if not u > 0:
         raise ConfigError(f"{where}.uncertainty", t["uncertainty"], "a positive number (GeV)")
-    return Target(meson, obs, v, u, "config")
+    source = "config"
+    if "convention" in t:               # a decay constant given in a stated convention
+        from ..meson.observables import CONVENTIONS
+
+        conv = str(t["convention"])
+        if obs != "decay_constant_gev" or conv not in CONVENTIONS:
+            raise ConfigError(f"{where}.convention", t["convention"],
+                              "92 or 131, for a decay_constant_gev target (default: the config's "
+                              "output.decay_constant_convention)")
+        k = CONVENTIONS[cfg.output.decay_constant_convention] / CONVENTIONS[conv]
+        v, u, source = v * k, u * k, f"config, given in the {conv} MeV convention"
+    return Target(meson, obs, v, u, source)
 
 
 def _default_source(obs: str) -> str:
