@@ -462,12 +462,20 @@ def mass_limit(q1: QuarkResult, q2: QuarkResult, eta: float) -> float:
     return min(q1.search_limit_gev * (0.5 / eta), q2.search_limit_gev * (0.5 / (1.0 - eta)))
 
 
-def _guess(channel: str, q1: QuarkResult, q2: QuarkResult, m_max: float) -> float:
+def mass_guess(channel: str, current_masses: tuple[float, float], m0: tuple[float, float],
+               m_max: float) -> float:
+    """Where the mass search starts when the config gives no guess: for a pseudoscalar the
+    Gell-Mann–Oakes–Renner-like scaling M² ≈ 2.5 GeV · (m₁ + m₂) (light quarks), capped;
+    otherwise 0.8 (M₁(0) + M₂(0)); below M_max."""
     if channel == "pseudoscalar":
-        # Gell-Mann–Oakes–Renner-like scaling M² ≈ 2.5 GeV · (m₁ + m₂) (light quarks), capped
-        msum = q1.solution.mass_gev + q2.solution.mass_gev
+        msum = current_masses[0] + current_masses[1]
         return min(0.8 * m_max, max(0.05, math.sqrt(2.5 * max(msum, 2e-6))))
-    return min(0.9 * m_max, 0.8 * (q1.mass_function_at_zero_gev + q2.mass_function_at_zero_gev))
+    return min(0.9 * m_max, 0.8 * (abs(m0[0]) + abs(m0[1])))
+
+
+def _guess(channel: str, q1: QuarkResult, q2: QuarkResult, m_max: float) -> float:
+    return mass_guess(channel, (q1.solution.mass_gev, q2.solution.mass_gev),
+                      (q1.mass_function_at_zero_gev, q2.mass_function_at_zero_gev), m_max)
 
 
 def check_mass_guess(cfg: Config, meson: MesonConfig, quarks: dict[str, QuarkResult]) -> None:

@@ -61,6 +61,7 @@ from ..quark import selfenergy as se
 from ..numerics._jax import jax, jnp
 from ..model.channels import QUARK
 from ..io.config import Config, ConfigError
+from .pipeline import bse_grid_of, gap_grid_of, kernel_of, mass_guess
 from ..model.kernel import C_F, N_C, Kernel
 
 OBSERVABLES = ("mass_gev", "decay_constant_gev")
@@ -415,11 +416,10 @@ def _eta(meson, m1, m2, warm_eta):
 def _guess(meson, ch, sols, m_max):
     if meson.mass_guess_gev is not None:
         return meson.mass_guess_gev
-    if ch.name == "pseudoscalar":
-        msum = sols[0].mass_gev + sols[1].mass_gev
-        return min(0.8 * m_max, max(0.05, math.sqrt(2.5 * max(msum, 2e-6))))
-    m0 = abs(sols[0].mass_function_at_zero()) + abs(sols[1].mass_function_at_zero())
-    return min(0.9 * m_max, 0.8 * m0)
+    if ch.name == "pseudoscalar":       # M(0) is not needed: no evaluation of it
+        return mass_guess(ch.name, (sols[0].mass_gev, sols[1].mass_gev), (0.0, 0.0), m_max)
+    return mass_guess(ch.name, (sols[0].mass_gev, sols[1].mass_gev),
+                      (sols[0].mass_function_at_zero(), sols[1].mass_function_at_zero()), m_max)
 
 
 def _is_exact(cfg, meson, specs, quarks) -> bool:
@@ -437,19 +437,19 @@ def _prepare(cfg: Config, keys, mesons, warm: dict):
     t0 = time.perf_counter()
     specs = [parse_key(cfg, k) for k in keys]
     theta = np.array([key_value(cfg, k) for k in keys])
-    kern = _kernel(cfg)
+    kern = kernel_of(cfg)
     need = sorted({q for m in mesons for q in m.quarks})
     quarks = {}
     for f in need:
         g = warm.get("quarks", {}).get(f)
         quarks[f] = gap.solve(kern, cfg.flavour(f).current_mass_gev, cfg.renormalisation_point_gev,
-                              _gap_grid(cfg), guess=g if g is not None and g.q2.size else None)
+                              gap_grid_of(cfg), guess=g if g is not None and g.q2.size else None)
     timings = {"gap": time.perf_counter() - t0}
     exact = {m.name: _is_exact(cfg, m, specs, quarks) for m in mesons}
     ctx = _Context(cfg=cfg, kern=kern, specs=specs, quarks=quarks, qtan={}, full_dlam=[], timings=timings)
     if any(exact.values()) and specs:
         t1 = time.perf_counter()
-        grid = _bse_grid(cfg)
+        grid = bse_grid_of(cfg)
         lgrid = _ladder_grid(kern, grid)
         sizes = [ladder.moment_sizes(channels.get(m.channel), -1.0, grid.n_z) for m in mesons if exact[m.name]]
         sizes.append(ladder.moment_sizes(QUARK, 1.0, grid.n_z))
@@ -555,24 +555,6 @@ def _central_differences(cfg, keys, wanted, state):
     return np.stack(cols, axis=1) if cols else np.zeros((len(wanted), 0))
 
 
-def _kernel(cfg):
-    from .pipeline import kernel_of
-
-    return kernel_of(cfg)
-
-
-def _gap_grid(cfg):
-    from .pipeline import gap_grid_of
-
-    return gap_grid_of(cfg)
-
-
-def _bse_grid(cfg):
-    from .pipeline import bse_grid_of
-
-    return bse_grid_of(cfg)
-
-
 def _ladder_grid(kern, grid):
     return ladder.LadderGrid(grid.radial(kern.q2_max), grid.n_z, grid.angular_half, grid.fine_order)
 
@@ -585,7 +567,7 @@ def _bound_state(ctx: _Context, meson, wm, qop):
     eta = _eta(meson, m1, m2, (wm or {}).get("eta"))
     m_max = min(2.2 * m1 * (0.5 / eta), 2.2 * m2 * (0.5 / (1.0 - eta)))
     ch = channels.get(meson.channel)
-    bs = bse.BoundState(ctx.kern, ch, _bse_grid(cfg), sols[0], sols[1] if meson.quarks[1] != meson.quarks[0] else None,
+    bs = bse.BoundState(ctx.kern, ch, bse_grid_of(cfg), sols[0], sols[1] if meson.quarks[1] != meson.quarks[0] else None,
                         eta=eta, continuation=cfg.bse.continuation, max_mass=m_max, quark_operator=qop,
                         shifted_tol=SHIFTED_TOL)
     if wm and bs._shifted is not None:
