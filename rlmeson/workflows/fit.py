@@ -20,7 +20,6 @@ from __future__ import annotations
 import dataclasses
 import math
 import time
-from collections import OrderedDict
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -80,8 +79,6 @@ def tune_current_mass(cfg: Config, flavour: str, meson_name: str, target_gev: fl
 # ----------------------------------------------------------------------------------------
 # Evaluating the targets' observables (warm-started), and their central-difference gradient
 
-#: Ladder operators kept between evaluations (per interaction, grid and channel).
-OPERATOR_CACHE = 6
 #: Relative step of the central differences (measured: on the MT pion, d m_pi/dD and
 #: d f_pi/dm agree between steps 1e-3 and 3e-4 to ~1e-5 relative; below ~1e-4 the mass
 #: root's tolerance, 1e-9 GeV, dominates).
@@ -91,16 +88,16 @@ CENTRAL_STEP = 1e-3
 @dataclass
 class Warm:
     """What carries over between evaluations: gap solutions (Newton starting points),
-    meson masses (search brackets), ladder operators, reference singularities."""
+    meson masses (search brackets), reference singularities.  (Ladder operators are kept
+    in-process by ``ladder.build`` itself, per kernel, channel and grid.)"""
 
     gap: dict = field(default_factory=dict)
     masses: dict = field(default_factory=dict)
-    operators: OrderedDict = field(default_factory=OrderedDict)
     reference: dict = field(default_factory=dict)
 
     def child(self) -> "Warm":
-        """A copy whose gap/masses may move without touching this one (operators shared)."""
-        return Warm(dict(self.gap), dict(self.masses), self.operators, self.reference)
+        """A copy whose gap/masses may move without touching this one."""
+        return Warm(dict(self.gap), dict(self.masses), self.reference)
 
 
 @dataclass(frozen=True)
@@ -153,26 +150,6 @@ def _quick_quark(cfg: Config, flavour: str, warm: Warm, store, full: bool, near=
                                 condensate_cbrt_gev=None, seconds=0.0, from_cache=False)
 
 
-def _operators(cfg: Config, channel, warm: Warm):
-    from ..model import ladder
-    from ..model.channels import QUARK
-
-    key = (cfg.interaction, cfg.kernel, cfg.bse, channel.name)
-    if key in warm.operators:
-        warm.operators.move_to_end(key)
-        return warm.operators[key]
-    kern, grid = pipeline.kernel_of(cfg), pipeline.bse_grid_of(cfg)
-    lgrid = ladder.LadderGrid(grid.radial(kern.q2_max), grid.n_z, grid.angular_half, grid.fine_order)
-    qkey = (cfg.interaction, cfg.kernel, cfg.bse, "quark")
-    if qkey not in warm.operators:
-        warm.operators[qkey] = ladder.build(kern, QUARK, lgrid, sign=+1.0)
-    ops = (ladder.build(kern, channel, lgrid), warm.operators[qkey])
-    warm.operators[key] = ops
-    while len(warm.operators) > OPERATOR_CACHE:
-        warm.operators.popitem(last=False)
-    return ops
-
-
 def observables(cfg: Config, wanted, warm: Warm | None = None, store=None) -> tuple[np.ndarray, Warm, dict]:
     """The observables ``wanted`` — (meson name, "mass_gev" | "decay_constant_gev") pairs,
     decay constants in the config's convention — of ``cfg``; returns (values, warm state,
@@ -199,10 +176,8 @@ def observables(cfg: Config, wanted, warm: Warm | None = None, store=None) -> tu
         ch = channels.get(m.channel)
         eta = pipeline.meson_eta(m, q1, q2)[0]
         m_max = pipeline.mass_limit(q1, q2, eta)
-        kop, qop = _operators(cfg, ch, warm)
         bs = bse.BoundState(kern, ch, grid, q1.solution, q2.solution if q2 is not q1 else None, eta=eta,
-                            continuation=cfg.bse.continuation, max_mass=m_max, kernel_operator=kop,
-                            quark_operator=qop)
+                            continuation=cfg.bse.continuation, max_mass=m_max)   # operators: ladder.build keeps them
         # the leading state of the channel's charge parity where C is a symmetry (as the run)
         parity = ch.c_parity if search.charge_symmetric(bs) else None
         previous = warm.masses.get(m.name)
