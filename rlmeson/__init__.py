@@ -50,22 +50,9 @@ def scan(cfg, workers: int | None = 1, dask: str | None = None, cache: bool = Tr
     the axes, ``.results`` every point with its status, ``.failed``).  ``workers``: 1 in
     this process, N worker processes, None one per core; ``dask``: a scheduler address or
     ``"local"``.  ``out``: also write scan.nc, scan.json and the figures there."""
-    from .workflows import scans as _scan
+    from .workflows.scans import scan as _scan
 
-    if isinstance(cfg, dict):
-        sc = _scan.from_config_dict(cfg, overrides)
-    elif isinstance(cfg, _scan.Scan):
-        sc = cfg
-    else:
-        sc = _scan.load(cfg, overrides)
-    if out is not None:                    # the destination is checked before the work
-        from .io.store import writable_directory
-
-        out = writable_directory(out)
-    res = _scan.execute(sc, workers=workers, dask=dask, cache=cache, progress=progress)
-    if out is not None:
-        res.write(out)
-    return res
+    return _scan(cfg, workers=workers, dask=dask, cache=cache, overrides=overrides, out=out, progress=progress)
 
 
 def fit(cfg, overrides=(), cache: bool = True, out=None, progress=None):

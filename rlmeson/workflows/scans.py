@@ -512,3 +512,23 @@ def execute(scan: Scan, workers: int | None = 1, dask: str | None = None, cache:
     if any(r.status == STATUS_OK for r in results):
         ds = add_gmor(scan, ds)
     return ScanResult(scan, results, ds, ex.description or type(ex).__name__, time.perf_counter() - t0)
+
+
+def scan(cfg, workers: int | None = 1, dask: str | None = None, cache: bool = True, overrides=(),
+         out=None, progress=None) -> "ScanResult":
+    """The API's ``rlmeson.scan``: ``cfg`` a path, a dict of the TOML layout or a ``Scan``;
+    ``out`` (checked before the work) also gets scan.nc, scan.json and the figures."""
+    if isinstance(cfg, dict):
+        sc = from_config_dict(cfg, overrides)
+    elif isinstance(cfg, Scan):
+        sc = cfg
+    else:
+        sc = load(cfg, overrides)
+    if out is not None:
+        from ..io.store import writable_directory
+
+        out = writable_directory(out)
+    res = execute(sc, workers=workers, dask=dask, cache=cache, progress=progress)
+    if out is not None:
+        res.write(out)
+    return res
